@@ -1,0 +1,97 @@
+//! Anytime-valid confidence sequences: sets that hold at every n at once, so a
+//! supervisor may look after every response and stop whenever they like.
+//!
+//! With replacement: the beta-binomial mixture (Robbins 1970; Howard, Ramdas,
+//! McAuliffe & Sekhon 2021). For each p the mixture of likelihood ratios `M_n(p)` is a
+//! nonnegative martingale with mean 1, so by Ville's inequality
+//! `P(∃n: M_n(p) ≥ 1/δ) ≤ δ`, and `C_n = {p : M_n(p) < 1/δ}`.
+//!
+//! Without replacement: the prior–posterior ratio of Waudby-Smith & Ramdas (2020) with
+//! a beta-binomial prior on the population count, centred like the mixture above.
+
+use super::exact::first_true;
+use super::roots::brent;
+use super::special::{ln_beta, ln_falling};
+
+/// The mixture's prior strength `k` for a planned size `t`:
+/// `max(t / (2L + ln(1 + 2L)) − 1, 10⁻³)`, `L = ln(1/δ)`.
+pub fn prior_strength(tune_for: f64, delta: f64) -> f64 {
+    let l = (1.0 / delta).ln();
+    (tune_for / (2.0 * l + (2.0 * l).ln_1p()) - 1.0).max(1e-3)
+}
+
+/// `ln M_n(p) = ln B(S + kp, n − S + kq) − ln B(kp, kq) − S ln p − (n − S) ln q`.
+fn ln_mixture(s: f64, n: f64, k: f64, p: f64) -> f64 {
+    let q = 1.0 - p;
+    if q <= 0.0 {
+        // Limit as p → 1: 1 when every response was a success, unbounded otherwise.
+        return if s >= n { 0.0 } else { f64::INFINITY };
+    }
+    let failures = n - s;
+    let mut v = ln_beta(s + k * p, failures + k * q) - ln_beta(k * p, k * q);
+    if s > 0.0 {
+        v -= s * p.ln();
+    }
+    if failures > 0.0 {
+        v -= failures * (-p).ln_1p();
+    }
+    v
+}
+
+/// The lower end of `{p : M_n(p) < 1/δ}` below p̂ = s/n (0 when the set reaches 0).
+fn mixture_lower(s: f64, n: f64, k: f64, delta: f64) -> f64 {
+    let level = (1.0 / delta).ln();
+    let p_hat = s / n;
+    let gap = |p: f64| ln_mixture(s, n, k, p) - level;
+    let floor = 1e-300;
+    if p_hat <= floor || gap(floor) <= 0.0 {
+        return 0.0;
+    }
+    brent(gap, floor, p_hat)
+}
+
+/// The mixture confidence sequence at `s` successes in `n` (either may be fractional
+/// when they come from weights), tuned with prior strength `k`.
+pub fn mixture(s: f64, n: f64, k: f64, delta: f64) -> (f64, f64) {
+    (
+        mixture_lower(s, n, k, delta),
+        1.0 - mixture_lower(n - s, n, k, delta),
+    )
+}
+
+/// `ln R(M)`, the prior–posterior ratio at population count `m` of `total`.
+fn ln_ratio(s: u64, n: u64, m: u64, total: u64, k: f64) -> f64 {
+    if m < s || total - m < n - s {
+        return f64::INFINITY;
+    }
+    if m == 0 || m == total {
+        // A prior concentrated on all-failure (all-success) populations: the ratio is 1
+        // when the data agree with it (guarded above), so the count stays in the set.
+        return 0.0;
+    }
+    let theta = m as f64 / total as f64;
+    let (a, b) = (k * theta, k * (1.0 - theta));
+    let (sf, nf, mf, tf) = (s as f64, n as f64, m as f64, total as f64);
+    let mixture = ln_beta(a + sf, b + nf - sf) - ln_beta(a, b);
+    let likelihood = ln_falling(mf, sf) + ln_falling(tf - mf, nf - sf) - ln_falling(tf, nf);
+    mixture - likelihood
+}
+
+/// The smallest population count in the without-replacement sequence.
+fn wor_lower(s: u64, n: u64, total: u64, k: f64, delta: f64) -> u64 {
+    if s == 0 {
+        return 0;
+    }
+    let level = (1.0 / delta).ln();
+    let hi = total - (n - s);
+    // The likelihood peaks at ⌊(N+1)S/n⌋, where the ratio is at most 1.
+    let peak = (((total + 1) as f64 * s as f64 / n as f64).floor() as u64).clamp(s, hi);
+    first_true(s, peak, |m| ln_ratio(s, n, m, total, k) < level).min(peak)
+}
+
+/// The without-replacement confidence sequence as population counts `(M_L, M_U)`.
+pub fn without_replacement(s: u64, n: u64, total: u64, k: f64, delta: f64) -> (u64, u64) {
+    let lower = wor_lower(s, n, total, k, delta);
+    let upper = total - wor_lower(n - s, n, total, k, delta);
+    (lower, upper.max(lower))
+}

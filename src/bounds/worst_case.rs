@@ -1,0 +1,225 @@
+//! The exact worst-case binomial margin: the smallest ε with
+//! `sup_p P_p(|X/n − p| > ε) ≤ δ`, `X ~ Binomial(n, p)`. It depends on n and δ only,
+//! holds for every p, and is the tightest margin any rule of the form `p̂ ± ε(n)` has.
+//!
+//! How the supremum over a continuum of p is found exactly: for fixed ε the event
+//! `{|X − np| > nε}` is a union of two tails whose cut points move with p, so the
+//! probability is piecewise in p; on each piece it is quasi-convex (its derivative
+//! changes sign once), so its supremum is approached at the ends of the pieces. By the
+//! symmetry p ↔ 1 − p it suffices to take the pieces' left ends `p₀ = k/n + ε`, where the
+//! value approached is `P_{p₀}(X ≤ k) + P_{p₀}(X > k + 2nε)` (k = 0, 1, …). The
+//! supremum is the largest of these "candidate" values.
+
+use std::collections::HashMap;
+use std::sync::{Mutex, OnceLock};
+
+use super::concentration::{hoeffding, kl};
+use super::special::{ln_binom_lower, ln_binom_pmf, ln_binom_upper};
+
+/// Above this n the exact computation (linear in n) gives way to Hoeffding's margin,
+/// which is never smaller and so keeps the worst-case guarantee.
+pub const EXACT_LIMIT: u64 = 200_000;
+
+/// The candidate value for pivot `k` at margin `eps` (see the module note).
+fn candidate(n: u64, k: u64, eps: f64) -> f64 {
+    let nf = n as f64;
+    let p = k as f64 / nf + eps;
+    if p > 1.0 {
+        return 0.0;
+    }
+    let q = (n - k) as f64 / nf - eps;
+    let below = ln_binom_lower(k, n, p, q).exp();
+    let cut = (k as f64 + 2.0 * nf * eps).floor() as u64 + 1;
+    let above = if cut > n {
+        0.0
+    } else {
+        ln_binom_upper(cut, n, p, q).exp()
+    };
+    below + above
+}
+
+/// A cheap upper bound on `candidate` (Chernoff's bound on each tail).
+fn candidate_bound(n: u64, k: u64, eps: f64) -> f64 {
+    let nf = n as f64;
+    let p = k as f64 / nf + eps;
+    if p > 1.0 {
+        return 0.0;
+    }
+    let below = (-nf * kl(k as f64 / nf, p)).exp();
+    let cut = (k as f64 + 2.0 * nf * eps).floor() as u64 + 1;
+    let above = if cut > n {
+        0.0
+    } else {
+        (-nf * kl(cut as f64 / nf, p)).exp()
+    };
+    below + above
+}
+
+/// A tighter upper bound on `candidate`: each tail is at most its first term over
+/// `1 − r`, `r` the ratio of its first two terms (the ratios keep shrinking outward).
+fn candidate_refined(n: u64, k: u64, eps: f64) -> f64 {
+    let nf = n as f64;
+    let p = k as f64 / nf + eps;
+    if p > 1.0 {
+        return 0.0;
+    }
+    let q = (n - k) as f64 / nf - eps;
+    let kf = k as f64;
+    // Lower tail P(X ≤ k): the ratio from k down to k − 1 is kq / ((n − k + 1)p).
+    let r_low = kf * q / ((nf - kf + 1.0) * p);
+    let below = if r_low < 1.0 {
+        ln_binom_pmf(k, n, p, q).exp() / (1.0 - r_low)
+    } else {
+        1.0
+    };
+    let cut = (kf + 2.0 * nf * eps).floor() as u64 + 1;
+    let above = if cut > n {
+        0.0
+    } else {
+        let cf = cut as f64;
+        let r_up = (nf - cf) * p / ((cf + 1.0) * q);
+        if r_up < 1.0 {
+            ln_binom_pmf(cut, n, p, q).exp() / (1.0 - r_up)
+        } else {
+            1.0
+        }
+    };
+    below + above
+}
+
+/// The first pivot whose candidate value exceeds δ at `eps`, searching outward from
+/// the pivot nearest p = ½ (where the worst cases lie), or `None` if every candidate
+/// is at most δ, that is if the margin `eps` holds for every p.
+fn violator(n: u64, eps: f64, delta: f64) -> Option<u64> {
+    let nf = n as f64;
+    let centre = (nf * (0.5 - eps)).round().clamp(0.0, nf) as u64;
+    let check = |k: u64| {
+        candidate_bound(n, k, eps) > delta
+            && candidate_refined(n, k, eps) > delta
+            && candidate(n, k, eps) > delta
+    };
+    for step in 0..=n {
+        let right = centre + step;
+        if right <= n && check(right) {
+            return Some(right);
+        }
+        if step > 0 && step <= centre && check(centre - step) {
+            return Some(centre - step);
+        }
+        if right > n && step > centre {
+            break;
+        }
+    }
+    None
+}
+
+/// Whether the margin `eps` holds at `n` for every p: `sup_p P_p(|X/n − p| > eps) ≤ δ`.
+pub fn holds(n: u64, eps: f64, delta: f64) -> bool {
+    violator(n, eps, delta).is_none()
+}
+
+/// The smallest margin at which pivot `k` alone stays at most δ, between `lo` (where
+/// it exceeds δ) and `hi` (where it does not), to the last bit.
+fn pivot_margin(n: u64, k: u64, mut lo: f64, mut hi: f64, delta: f64) -> f64 {
+    loop {
+        let mid = 0.5 * (lo + hi);
+        if mid <= lo || mid >= hi {
+            return hi;
+        }
+        if candidate(n, k, mid) > delta {
+            lo = mid;
+        } else {
+            hi = mid;
+        }
+    }
+}
+
+fn compute(n: u64, delta: f64) -> f64 {
+    // Hoeffding's margin always holds, so the answer lies at or below it.
+    let hi = hoeffding(n as f64, delta, 1.0).min(1.0);
+    let mut eps = 0.0;
+    while let Some(k) = violator(n, eps, delta) {
+        if eps >= hi {
+            break;
+        }
+        eps = pivot_margin(n, k, eps, hi, delta);
+    }
+    eps
+}
+
+/// The exact worst-case binomial margin for `n ≤ EXACT_LIMIT` responses (memoised).
+pub fn margin(n: u64, delta: f64) -> f64 {
+    static MEMO: OnceLock<Mutex<HashMap<(u64, u64), f64>>> = OnceLock::new();
+    let memo = MEMO.get_or_init(Default::default);
+    let key = (n, delta.to_bits());
+    if let Some(&m) = memo.lock().unwrap_or_else(|e| e.into_inner()).get(&key) {
+        return m;
+    }
+    let m = compute(n, delta);
+    memo.lock()
+        .unwrap_or_else(|e| e.into_inner())
+        .insert(key, m);
+    m
+}
+
+/// The Berry–Esseen constant for sums of independent identically distributed terms,
+/// `sup |F_n − Φ| ≤ C ρ / (σ³ √n)`: C = 0.4748 (Shevtsova 2011; value from memory).
+const BERRY_ESSEEN: f64 = 0.4748;
+
+/// An upper bound on `sup_p P_p(|X/n − p| > eps)` that cannot increase with n: over a
+/// grid of intervals of p in (0, ½], the smaller of the Berry–Esseen bound
+/// `2Φ(−ε√(n/pq)) + 2C(p² + q²)/√(npq)` and Bernstein's `2 exp(−nε²/(2pq + 2ε/3))`, each
+/// taken at the interval's worst end (the normal term and Bernstein's grow with pq, the
+/// Berry–Esseen remainder shrinks with it). Every term falls as n grows, so once it is
+/// at most δ it stays so.
+fn monotone_bound(n: u64, eps: f64) -> f64 {
+    const STEPS: u32 = 2000;
+    let nf = n as f64;
+    let mut worst: f64 = 0.0;
+    for i in 0..STEPS {
+        let (a, b) = (
+            0.5 * f64::from(i) / f64::from(STEPS),
+            0.5 * f64::from(i + 1) / f64::from(STEPS),
+        );
+        let (va, vb) = (a * (1.0 - a), b * (1.0 - b));
+        let bernstein = 2.0 * (-nf * eps * eps / (2.0 * vb + 2.0 * eps / 3.0)).exp();
+        let berry_esseen = if va > 0.0 {
+            let z = eps * (nf / vb).sqrt();
+            statrs::function::erf::erfc(z / std::f64::consts::SQRT_2)
+                + 2.0 * BERRY_ESSEEN * (1.0 - 2.0 * va) / (nf * va).sqrt()
+        } else {
+            f64::INFINITY
+        };
+        worst = worst.max(bernstein.min(berry_esseen));
+    }
+    // A little room for rounding in the terms above.
+    worst * (1.0 + 1e-9)
+}
+
+/// The smallest n from which the margin `eps` is guaranteed at every larger n without
+/// checking: where [`monotone_bound`] reaches δ, and never past Hoeffding's size.
+fn guaranteed_from(eps: f64, delta: f64) -> u64 {
+    let hoeffding_n = ((2.0 / delta).ln() / (2.0 * eps * eps)).ceil().max(1.0) as u64;
+    super::exact::first_true(1, hoeffding_n, |n| monotone_bound(n, eps) <= delta).min(hoeffding_n)
+}
+
+/// For a target margin `eps`: the smallest n at which it holds, and the smallest n from
+/// which it holds at every larger n. Every n is checked exactly up to the point from
+/// which a bound that cannot increase with n guarantees it. `None` when that point lies
+/// past [`EXACT_LIMIT`].
+pub fn sizes(eps: f64, delta: f64) -> Option<(u64, u64)> {
+    let beyond = guaranteed_from(eps, delta);
+    if beyond > EXACT_LIMIT {
+        return None;
+    }
+    let mut first = None;
+    let mut last_failure = 0;
+    for n in 1..=beyond {
+        if holds(n, eps, delta) {
+            first.get_or_insert(n);
+        } else {
+            last_failure = n;
+        }
+    }
+    Some((first.unwrap_or(beyond), last_failure + 1))
+}
