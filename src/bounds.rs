@@ -20,7 +20,9 @@ use std::str::FromStr;
 
 use serde::{Deserialize, Serialize};
 
-pub use size::{RequiredSize, SizeQuery, more_needed, required_size, required_sizes};
+pub use size::{
+    RequiredSize, SizeQuery, more_needed, required_size, required_sizes, widest_margin,
+};
 pub use worst_case::EXACT_LIMIT as BINOMIAL_EXACT_LIMIT;
 
 /// How a margin is computed.

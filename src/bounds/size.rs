@@ -106,8 +106,20 @@ fn planned_margin(method: Method, n: u64, sq: &SizeQuery) -> Result<f64, Unavail
     }
 }
 
-/// The margin at `n` in the worst case over the proportion: at p̂ = ½ and at the whole
-/// counts either side of n/2 (the tests check no other outcome is wider).
+/// The widest margin at `n` over every outcome S = 0..n (and p̂ = ½), with the
+/// anytime sequence tuned for `n`. Margins are mirror-symmetric in S, so only S ≤ n/2
+/// is searched: exhaustively up to n = 400, and above that by a ternary search for the
+/// peak (margins rise from S = 0 to a peak a little short of n/2, then dip slightly;
+/// the tests check the search against the exhaustive answer) with a look around it.
+pub fn widest_margin(
+    method: Method,
+    n: u64,
+    level: Level,
+    population: Option<u64>,
+) -> Result<f64, Unavailable> {
+    worst_margin(method, n, level, population, n as f64)
+}
+
 fn worst_margin(
     method: Method,
     n: u64,
@@ -115,13 +127,32 @@ fn worst_margin(
     population: Option<u64>,
     tune_for: f64,
 ) -> Result<f64, Unavailable> {
-    let mut worst: f64 = 0.0;
-    for s in [0.5 * n as f64, (n / 2) as f64, n.div_ceil(2) as f64] {
+    let at = |s: f64| {
         let mut b = basis_at(n, s, level, population, tune_for);
         if s.fract() == 0.0 {
             b.whole = Some((s as u64, n));
         }
-        worst = worst.max(margin_at(method, &b, false)?);
+        margin_at(method, &b, false)
+    };
+    let half = n / 2;
+    let mut worst = at(0.5 * n as f64)?.max(at(n.div_ceil(2) as f64)?);
+    let (from, to) = if n <= 400 {
+        (0, half)
+    } else {
+        let (mut a, mut b) = (0, half);
+        while b - a > 8 {
+            let m1 = a + (b - a) / 3;
+            let m2 = b - (b - a) / 3;
+            if at(m1 as f64)? < at(m2 as f64)? {
+                a = m1;
+            } else {
+                b = m2;
+            }
+        }
+        (a.saturating_sub(8), (b + 8).min(half))
+    };
+    for s in from..=to {
+        worst = worst.max(at(s as f64)?);
     }
     Ok(worst)
 }
