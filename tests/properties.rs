@@ -3,6 +3,8 @@
 //! always-true bounds with a population, and a zero margin once the whole population
 //! has answered.
 
+#![allow(clippy::unwrap_used, clippy::expect_used, clippy::panic)]
+
 use closeout::bounds::{self, Level, Method, Query};
 use proptest::prelude::*;
 
