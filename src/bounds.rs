@@ -653,7 +653,14 @@ pub fn interval(method: Method, q: &Query) -> Result<Interval, Unavailable> {
 
 /// The margin under one method at a basis (for the size search).
 pub(crate) fn margin_at(method: Method, b: &Basis, weighted: bool) -> Result<f64, Unavailable> {
-    let estimate = b.p_hat();
+    // Methods that work from whole counts measure the margin from the whole-count
+    // estimate, as an interval computed from observed counts would.
+    let whole_only =
+        method == Method::ClopperPearson || (method == Method::Anytime && b.population.is_some());
+    let estimate = match b.whole {
+        Some((s, n)) if whole_only => s as f64 / n as f64,
+        _ => b.p_hat(),
+    };
     Ok(finish(method, b, estimate, raw(method, b, weighted)?).margin)
 }
 
