@@ -6,3 +6,4 @@
 
 pub mod bounds;
 pub mod report;
+pub mod rows;
