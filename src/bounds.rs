@@ -12,7 +12,7 @@ mod exact;
 mod normal;
 mod roots;
 mod size;
-pub(crate) mod special;
+pub mod special;
 mod worst_case;
 
 use std::fmt;

@@ -11,14 +11,24 @@ measurement error. Quota samples are not probability samples, so every guarantee
 responses behave like random draws within their cell. The study's statistician and the \
 standards that bind the study decide.";
 
-/// A proportion as a percentage with two decimals.
-pub fn percent(x: f64) -> String {
-    format!("{:.2} %", 100.0 * x)
+/// A number of percent with two decimals, or three significant digits below 0.1 so
+/// that small values do not show as zero.
+fn percent_digits(v: f64) -> String {
+    if v == 0.0 || v.abs() >= 0.1 || !v.is_finite() {
+        return format!("{v:.2}");
+    }
+    let decimals = (2 - v.abs().log10().floor() as i32).clamp(2, 20) as usize;
+    format!("{v:.decimals$}")
 }
 
-/// A margin in percentage points.
+/// A proportion as a percentage: `30.80 %`, `0.00120 %`.
+pub fn percent(x: f64) -> String {
+    format!("{} %", percent_digits(100.0 * x))
+}
+
+/// A margin in percentage points: `±5.58 pts`.
 pub fn points(x: f64) -> String {
-    format!("±{:.2} pts", 100.0 * x)
+    format!("±{} pts", percent_digits(100.0 * x))
 }
 
 /// A confidence level as people write it: 95 %, 99.9 %, 1 − 1e-12.
@@ -228,4 +238,25 @@ pub fn size_json(sq: &SizeQuery, rows: &[Result<RequiredSize, Unavailable>]) -> 
         "expect": sq.expect(),
         "sizes": sizes,
     })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn small_values_keep_three_significant_digits() {
+        assert_eq!(percent(0.308), "30.80 %");
+        assert_eq!(percent(0.0), "0.00 %");
+        assert_eq!(percent(0.000_012_34), "0.00123 %");
+        assert_eq!(points(0.0558), "±5.58 pts");
+        assert_eq!(points(0.000_5), "±0.0500 pts");
+    }
+
+    #[test]
+    fn confidence_labels() {
+        assert_eq!(confidence_label(0.95, 0.05), "95 %");
+        assert_eq!(confidence_label(0.999, 0.001), "99.9 %");
+        assert_eq!(confidence_label(1.0 - 1e-12, 1e-12), "1 − 1e-12");
+    }
 }
