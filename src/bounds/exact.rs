@@ -32,8 +32,12 @@ pub fn clopper_pearson(s: u64, n: u64, delta: f64) -> (f64, f64) {
 /// The exact interval for the share of successes in a population of `total` units,
 /// from `s` successes in `n` drawn without replacement: the population counts `M`
 /// that neither one-sided hypergeometric test rejects at `δ/2`. Returns `(M_L, M_U)`.
+///
+/// A count whose tail probability equals δ/2 to within rounding (relative 10⁻¹²) is
+/// kept, so the interval is closed as Clopper–Pearson's is: ties are common here
+/// because small populations give rational tail probabilities such as 1/20.
 pub fn hypergeometric(s: u64, n: u64, total: u64, delta: f64) -> (u64, u64) {
-    let cut = (0.5 * delta).ln();
+    let cut = (0.5 * delta).ln() - 1e-12;
     // Feasible counts: at least the successes seen, at most all but the failures seen.
     let (lo, hi) = (s, total - (n - s));
     let m_lower = if s == 0 {
