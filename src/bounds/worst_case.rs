@@ -212,14 +212,34 @@ pub fn sizes(eps: f64, delta: f64) -> Option<(u64, u64)> {
     if beyond > EXACT_LIMIT {
         return None;
     }
-    let mut first = None;
-    let mut last_failure = 0;
-    for n in 1..=beyond {
-        if holds(n, eps, delta) {
-            first.get_or_insert(n);
-        } else {
-            last_failure = n;
+    // Each n is independent: share them out, interleaved, over the available cores.
+    let workers = std::thread::available_parallelism()
+        .map_or(1, |c| c.get())
+        .min(8) as u64;
+    let scan = |offset: u64| {
+        let (mut first, mut last_failure) = (None, 0);
+        let mut n = 1 + offset;
+        while n <= beyond {
+            if holds(n, eps, delta) {
+                first.get_or_insert(n);
+            } else {
+                last_failure = n;
+            }
+            n += workers;
         }
-    }
+        (first, last_failure)
+    };
+    let results: Vec<(Option<u64>, u64)> = std::thread::scope(|scope| {
+        let handles: Vec<_> = (1..workers).map(|w| scope.spawn(move || scan(w))).collect();
+        let mut out = vec![scan(0)];
+        // A worker can only fail by panicking, which the lints rule out; fall back to
+        // scanning its share here if it ever does.
+        for (w, h) in (1..workers).zip(handles) {
+            out.push(h.join().unwrap_or_else(|_| scan(w)));
+        }
+        out
+    });
+    let first = results.iter().filter_map(|r| r.0).min();
+    let last_failure = results.iter().map(|r| r.1).max().unwrap_or(0);
     Some((first.unwrap_or(beyond), last_failure + 1))
 }
