@@ -430,6 +430,46 @@ impl fmt::Display for Unavailable {
     }
 }
 
+/// One method's result as data: the interval, or why there is none. The shape of each
+/// entry of `bounds` in the JSON outputs.
+#[derive(Clone, Copy, Debug, PartialEq, Serialize)]
+pub struct BoundRow {
+    pub method: Method,
+    pub lower: Option<f64>,
+    pub upper: Option<f64>,
+    pub margin: Option<f64>,
+    pub guarantee: Guarantee,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub note: Option<&'static str>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub unavailable: Option<&'static str>,
+}
+
+impl From<&Result<Interval, Unavailable>> for BoundRow {
+    fn from(row: &Result<Interval, Unavailable>) -> BoundRow {
+        match row {
+            Ok(i) => BoundRow {
+                method: i.method,
+                lower: Some(i.lower),
+                upper: Some(i.upper),
+                margin: Some(i.margin),
+                guarantee: i.guarantee,
+                note: i.note,
+                unavailable: None,
+            },
+            Err(u) => BoundRow {
+                method: u.method,
+                lower: None,
+                upper: None,
+                margin: None,
+                guarantee: u.method.guarantee(),
+                note: None,
+                unavailable: Some(u.reason),
+            },
+        }
+    }
+}
+
 /// The numbers one method works from, after weights and defaults are resolved.
 #[derive(Clone, Copy, Debug)]
 pub(crate) struct Basis {

@@ -3,7 +3,7 @@
 
 use serde_json::{Value, json};
 
-use crate::bounds::{Interval, Query, RequiredSize, SizeQuery, Unavailable};
+use crate::bounds::{BoundRow, Interval, Query, RequiredSize, SizeQuery, Unavailable};
 
 /// The usual cautions, shown wherever a margin could be taken for more than it is.
 pub const CAUTIONS: &str = "Margins cover sampling error only, not non-response, coverage or \
@@ -113,29 +113,7 @@ pub fn margin_text(q: &Query, rows: &[Result<Interval, Unavailable>]) -> String 
 }
 
 fn interval_json(row: &Result<Interval, Unavailable>) -> Value {
-    match row {
-        Ok(i) => {
-            let mut v = json!({
-                "method": i.method,
-                "lower": i.lower,
-                "upper": i.upper,
-                "margin": i.margin,
-                "guarantee": i.guarantee,
-            });
-            if let Some(note) = i.note {
-                v["note"] = json!(note);
-            }
-            v
-        }
-        Err(u) => json!({
-            "method": u.method,
-            "lower": null,
-            "upper": null,
-            "margin": null,
-            "guarantee": u.method.guarantee(),
-            "unavailable": u.reason,
-        }),
-    }
+    serde_json::to_value(BoundRow::from(row)).unwrap_or(Value::Null)
 }
 
 /// The JSON document for `closeout margin --json`.
