@@ -320,15 +320,19 @@ impl Study {
         match loose.as_slice() {
             [i] => Ok(*i),
             [] => {
-                let suggestion = nearest(name, header.iter().map(|h| header_name(h)))
-                    .map(|s| format!("; did you mean '{}'?", shown(s)))
-                    .unwrap_or_default();
+                let after = if header.is_empty() {
+                    " (the header is empty): check source.file and source.delimiter".to_string()
+                } else {
+                    let suggestion = nearest(name, header.iter().map(|h| header_name(h)))
+                        .map(|s| format!("; did you mean '{}'?", shown(s)))
+                        .unwrap_or_else(|| ".".to_string());
+                    format!("{suggestion} {}", header_list(header))
+                };
                 Err(fail(
                     StudyErrorKind::MissingColumn,
                     format!(
-                        "column '{}' ({used_by}) is not in the header{suggestion} {}",
-                        shown(name),
-                        header_list(header),
+                        "column '{}' ({used_by}) is not in the header{after}",
+                        shown(name)
                     ),
                 ))
             }
@@ -441,9 +445,6 @@ fn field_numbers(fields: &[usize]) -> String {
 /// "The header has: a, b, c" with at most 30 names.
 fn header_list(header: &[&str]) -> String {
     const SHOWN: usize = 30;
-    if header.is_empty() {
-        return "(the header is empty): check source.file and source.delimiter".to_string();
-    }
     let names: Vec<String> = header
         .iter()
         .take(SHOWN)
