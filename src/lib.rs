@@ -2,11 +2,16 @@
 //! per quota cell, and say how precise each one is under several probability bounds
 //! and when collection can close.
 //!
-//! The modules follow the data flow: `rows` turns a CSV record into a response or a
-//! rejection, `tally` keeps the running sums per cell and measure, and `bounds`
-//! computes margins and sizes from counts.
+//! The modules follow the data flow: `study` reads and checks the study file; `rows`
+//! turns a CSV record into a response or a rejection; `tally` keeps the running sums
+//! per cell and measure; `batch` reads a whole file once; `bounds` computes margins
+//! and sizes from counts; `assess` turns a study and its tally into a `Snapshot`;
+//! `report` writes a snapshot (or a margin or size question) as text, JSON or CSV.
 
+pub mod assess;
+pub mod batch;
 pub mod bounds;
 pub mod report;
 pub mod rows;
+pub mod study;
 pub mod tally;
