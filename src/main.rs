@@ -1,12 +1,14 @@
 //! The `closeout` command: argument parsing and exit codes; the library does the work.
 
 use std::io::Write;
+use std::path::PathBuf;
 use std::process::ExitCode;
 
 use clap::{Parser, Subcommand};
 
 use closeout::bounds::{self, Level, Query, SizeQuery};
-use closeout::report;
+use closeout::study::Study;
+use closeout::{assess, batch, report};
 
 /// Follow survey fieldwork: margins of error per quota cell and when collection can close.
 #[derive(Parser)]
@@ -55,12 +57,40 @@ enum Command {
         #[arg(long)]
         json: bool,
     },
+    /// Where every quota cell stands now, and whether collection can close.
+    Status {
+        /// The study file (TOML).
+        study: PathBuf,
+        /// Output: a text table, the whole snapshot as JSON, or CSV (one row per cell × measure).
+        #[arg(long, value_enum, default_value_t = Format::Text)]
+        format: Format,
+        /// Exit 0 when ready to close and 1 while still collecting (2 on error).
+        #[arg(long)]
+        exit_code: bool,
+        /// The moment rates and ETAs refer to, RFC 3339 (default: now).
+        #[arg(long)]
+        as_of: Option<String>,
+    },
 }
 
-/// An error in what the user asked for: exit code 2.
+#[derive(Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
+enum Format {
+    Text,
+    Json,
+    Csv,
+}
+
+/// What a successful run prints and how it exits.
+struct Done {
+    text: String,
+    code: u8,
+}
+
+/// An error in what the user asked for or gave us (arguments, the study file, the
+/// responses file): exit code 2.
 struct Usage(String);
 
-fn run(cli: Cli) -> Result<String, Usage> {
+fn run(cli: Cli) -> Result<Done, Usage> {
     let usage = |e: bounds::BoundsError| Usage(e.to_string());
     match cli.command {
         Command::Margin {
@@ -85,11 +115,12 @@ fn run(cli: Cli) -> Result<String, Usage> {
                 ));
             }
             let rows = bounds::intervals(&q);
-            Ok(if json {
+            let text = if json {
                 format!("{}\n", report::margin_json(&q, &rows))
             } else {
                 report::margin_text(&q, &rows)
-            })
+            };
+            Ok(Done { text, code: 0 })
         }
         Command::Size {
             margin,
@@ -107,11 +138,41 @@ fn run(cli: Cli) -> Result<String, Usage> {
                 sq = sq.with_expect(p).map_err(usage)?;
             }
             let rows = bounds::required_sizes(&sq);
-            Ok(if json {
+            let text = if json {
                 format!("{}\n", report::size_json(&sq, &rows))
             } else {
                 report::size_text(&sq, &rows)
-            })
+            };
+            Ok(Done { text, code: 0 })
+        }
+        Command::Status {
+            study,
+            format,
+            exit_code,
+            as_of,
+        } => {
+            let as_of = match as_of {
+                Some(text) => text.parse::<jiff::Timestamp>().map_err(|e| {
+                    Usage(format!(
+                        "--as-of '{text}' is not an RFC 3339 time such as 2026-12-01T09:00:00Z: {e}"
+                    ))
+                })?,
+                None => jiff::Timestamp::now(),
+            };
+            let study = Study::load(&study).map_err(|e| Usage(e.to_string()))?;
+            let tally = batch::read(&study).map_err(|e| Usage(e.to_string()))?;
+            let snapshot = assess::assess(&study, &tally, as_of);
+            let text = match format {
+                Format::Text => report::status_text(&snapshot),
+                Format::Json => format!("{}\n", report::status_json(&snapshot)),
+                Format::Csv => report::status_csv(&snapshot, &study.cells),
+            };
+            let code = if exit_code && !snapshot.ready_to_close {
+                1
+            } else {
+                0
+            };
+            Ok(Done { text, code })
         }
     }
 }
@@ -119,11 +180,11 @@ fn run(cli: Cli) -> Result<String, Usage> {
 fn main() -> ExitCode {
     let cli = Cli::parse();
     match run(cli) {
-        Ok(text) => {
+        Ok(Done { text, code }) => {
             let mut out = std::io::stdout().lock();
             match out.write_all(text.as_bytes()).and_then(|()| out.flush()) {
-                Ok(()) => ExitCode::SUCCESS,
-                Err(e) if e.kind() == std::io::ErrorKind::BrokenPipe => ExitCode::SUCCESS,
+                Ok(()) => ExitCode::from(code),
+                Err(e) if e.kind() == std::io::ErrorKind::BrokenPipe => ExitCode::from(code),
                 Err(e) => {
                     eprintln!("closeout: cannot write the output: {e}");
                     ExitCode::from(1)

@@ -5,6 +5,33 @@ use serde_json::{Value, json};
 
 use crate::bounds::{BoundRow, Interval, Query, RequiredSize, SizeQuery, Unavailable};
 
+mod status;
+
+pub use status::{neutralise, status_csv, status_json, status_text, verdict, when};
+
+/// The cautions in one line, for compact outputs.
+pub const CAUTIONS_SHORT: &str = "Sampling error only (not non-response, coverage or measurement error); \
+quota samples are not probability samples; the study's statistician decides.";
+
+/// Untrusted text made safe to print: control characters (escape sequences among
+/// them) shown as `\u{…}`, and values longer than `max` characters cut with an ellipsis.
+pub fn clean(text: &str, max: usize) -> String {
+    let mut out = String::new();
+    let long = text.chars().count() > max;
+    for (count, c) in text.chars().enumerate() {
+        if long && count >= max.saturating_sub(1) {
+            out.push('…');
+            break;
+        }
+        if c.is_control() {
+            out.push_str(&format!("\\u{{{:x}}}", c as u32));
+        } else {
+            out.push(c);
+        }
+    }
+    out
+}
+
 /// The usual cautions, shown wherever a margin could be taken for more than it is.
 pub const CAUTIONS: &str = "Margins cover sampling error only, not non-response, coverage or \
 measurement error. Quota samples are not probability samples, so every guarantee assumes \

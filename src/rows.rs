@@ -108,6 +108,19 @@ pub enum Reason {
     BadTime(String),
 }
 
+impl Reason {
+    /// A stable name for the kind of problem, for JSON and CSV outputs.
+    pub fn kind(&self) -> &'static str {
+        match self {
+            Reason::FieldCount { .. } => "field_count",
+            Reason::NotUtf8 { .. } => "not_utf8",
+            Reason::BadWeight(_) => "bad_weight",
+            Reason::NegativeWeight(_) => "negative_weight",
+            Reason::BadTime(_) => "bad_time",
+        }
+    }
+}
+
 /// The longest a quoted value may be in a message, in characters, before it is cut
 /// short with an ellipsis.
 pub const QUOTE_LIMIT: usize = 60;
