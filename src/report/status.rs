@@ -41,7 +41,7 @@ pub fn verdict(s: &Snapshot) -> String {
     } else {
         let eta = match s.last_eta {
             Some(t) => format!("last cell expected {}", when(t)),
-            None => "no ETA for every open cell yet".to_string(),
+            None => "no ETA yet for every open cell".to_string(),
         };
         format!(
             "still collecting: {} of {} planned cells met, {} open; {eta}",
