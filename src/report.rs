@@ -14,22 +14,10 @@ pub const CAUTIONS_SHORT: &str = "Sampling error only (not non-response, coverag
 quota samples are not probability samples; the study's statistician decides.";
 
 /// Untrusted text made safe to print: control characters (escape sequences among
-/// them) shown as `\u{…}`, and values longer than `max` characters cut with an ellipsis.
+/// them) and characters that hide or reorder text shown as `\u{…}`, and values longer
+/// than `max` characters cut with an ellipsis.
 pub fn clean(text: &str, max: usize) -> String {
-    let mut out = String::new();
-    let long = text.chars().count() > max;
-    for (count, c) in text.chars().enumerate() {
-        if long && count >= max.saturating_sub(1) {
-            out.push('…');
-            break;
-        }
-        if c.is_control() {
-            out.push_str(&format!("\\u{{{:x}}}", c as u32));
-        } else {
-            out.push(c);
-        }
-    }
-    out
+    crate::rows::shown_safely(text, max.saturating_sub(1))
 }
 
 /// The usual cautions, shown wherever a margin could be taken for more than it is.

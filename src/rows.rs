@@ -130,6 +130,11 @@ pub const QUOTE_LIMIT: usize = 60;
 /// the byte-order mark) become `\u{…}` escapes, and a value longer than
 /// [`QUOTE_LIMIT`] characters is cut short with `…`.
 pub fn quote_safely(raw: &str) -> String {
+    shown_safely(raw, QUOTE_LIMIT)
+}
+
+/// [`quote_safely`] with a length limit of `limit` characters (escapes included).
+pub fn shown_safely(raw: &str, limit: usize) -> String {
     let mut out = String::new();
     let mut shown = 0;
     for c in raw.chars() {
@@ -139,7 +144,7 @@ pub fn quote_safely(raw: &str) -> String {
             c.to_string()
         };
         let width = piece.chars().count();
-        if shown + width > QUOTE_LIMIT {
+        if shown + width > limit {
             out.push('…');
             return out;
         }
