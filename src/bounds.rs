@@ -392,6 +392,10 @@ impl Query {
     pub fn tune_for(&self) -> u64 {
         self.tune_for.unwrap_or(self.n).max(1)
     }
+    /// Whether the planned size was given rather than defaulted to n.
+    pub fn tune_for_given(&self) -> bool {
+        self.tune_for.is_some()
+    }
     /// The estimate: S/n, or the weighted proportion.
     pub fn estimate(&self) -> Option<f64> {
         match self.weights {

@@ -91,8 +91,13 @@ pub fn margin_text(q: &Query, rows: &[Result<Interval, Unavailable>]) -> String 
             "population {total} (sampling without replacement)\n"
         ));
     }
+    let default_note = if q.tune_for_given() {
+        ""
+    } else {
+        " (the responses themselves: give --tune-for the size planned in advance)"
+    };
     out.push_str(&format!(
-        "anytime sequence tuned for {} responses\n\n",
+        "anytime sequence tuned for {} responses{default_note}\n\n",
         q.tune_for()
     ));
     out.push_str(&format!(
