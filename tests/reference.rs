@@ -264,3 +264,23 @@ fn anytime_mixture_matches_confseq() {
         assert!((i.upper - f(&c, "upper")).abs() < 1e-9, "{c}: {}", i.upper);
     }
 }
+
+/// The mixture at n = 10⁷ (S = 3·10⁶, 95 %, tuned for n), where `ln Γ` differences lose
+/// digits: reference ends 0.29956026620530953070… and 0.30043995320677202853… from
+/// mpmath 1.3.0 at 50 digits (the same ln M(p) as `anytime_intervals.json`, roots by
+/// `mpmath.findroot`, evaluated once by hand for this check).
+#[test]
+fn anytime_mixture_at_ten_million_matches_mpmath() {
+    let q = Query::new(3_000_000, 10_000_000, Level::from_confidence(0.95).unwrap()).unwrap();
+    let i = bounds::interval(Method::Anytime, &q).unwrap();
+    assert!(
+        (i.lower - 0.299_560_266_205_309_5).abs() < 2e-15,
+        "{}",
+        i.lower
+    );
+    assert!(
+        (i.upper - 0.300_439_953_206_772).abs() < 2e-15,
+        "{}",
+        i.upper
+    );
+}

@@ -11,7 +11,7 @@
 
 use super::exact::first_true;
 use super::roots::brent;
-use super::special::{ln_beta, ln_falling};
+use super::special::{ln_beta, ln_falling, ln_gamma};
 
 /// The mixture's prior strength `k` for a planned size `t`:
 /// `max(t / (2L + ln(1 + 2L)) − 1, 10⁻³)`, `L = ln(1/δ)`.
@@ -21,6 +21,14 @@ pub fn prior_strength(tune_for: f64, delta: f64) -> f64 {
 }
 
 /// `ln M_n(p) = ln B(S + kp, n − S + kq) − ln B(kp, kq) − S ln p − (n − S) ln q`.
+///
+/// Computed without the cancellation of `ln Γ` differences at large n: writing
+/// `ln Γ(x) = (x − ½) ln x − x + ½ ln 2π + ω(x)` (ω Stirling's error), the terms of
+/// size n ln n cancel exactly and what is left is
+/// `(A − ½) ln(1 + d/(Tp)) + (B − ½) ln(1 − d/(Tq)) + ½ ln(k/T) + Ω`, with
+/// `A = S + kp`, `B = n − S + kq`, `T = n + k`, `d = S − np` and
+/// `Ω = ω(A) + ω(B) − ω(T) − ω(kp) − ω(kq) + ω(k)`. At n = 10⁷ this keeps the ends to
+/// about 1e-15 where the `ln Γ` form lost about 2e-12 (against mpmath at 50 digits).
 fn ln_mixture(s: f64, n: f64, k: f64, p: f64) -> f64 {
     let q = 1.0 - p;
     if q <= 0.0 {
@@ -28,14 +36,32 @@ fn ln_mixture(s: f64, n: f64, k: f64, p: f64) -> f64 {
         return if s >= n { 0.0 } else { f64::INFINITY };
     }
     let failures = n - s;
-    let mut v = ln_beta(s + k * p, failures + k * q) - ln_beta(k * p, k * q);
-    if s > 0.0 {
-        v -= s * p.ln();
+    let (a, b, t) = (s + k * p, failures + k * q, n + k);
+    let d = s - n * p;
+    let omega = stirling_error(a) + stirling_error(b)
+        - stirling_error(t)
+        - stirling_error(k * p)
+        - stirling_error(k * q)
+        + stirling_error(k);
+    (a - 0.5) * (d / (t * p)).ln_1p()
+        + (b - 0.5) * (-d / (t * q)).ln_1p()
+        + 0.5 * (k / t).ln()
+        + omega
+}
+
+/// Stirling's error for real `x > 0`: `ln Γ(x) − (x − ½) ln x + x − ½ ln 2π`. The
+/// asymptotic series from x = 15 (its first omitted term is below 3e-16 there), the
+/// definition itself below.
+fn stirling_error(x: f64) -> f64 {
+    const HALF_LN_2PI: f64 = 0.918_938_533_204_672_8;
+    if x >= 15.0 {
+        let x2 = x * x;
+        (1.0 / 12.0
+            - (1.0 / 360.0 - (1.0 / 1260.0 - (1.0 / 1680.0 - 1.0 / (1188.0 * x2)) / x2) / x2) / x2)
+            / x
+    } else {
+        ln_gamma(x) - (x - 0.5) * x.ln() + x - HALF_LN_2PI
     }
-    if failures > 0.0 {
-        v -= failures * (-p).ln_1p();
-    }
-    v
 }
 
 /// The lower end of `{p : M_n(p) < 1/δ}` below p̂ = s/n (0 when the set reaches 0).
