@@ -1,0 +1,571 @@
+//! Following a growing responses file: whatever the writer does — appends that cut
+//! lines and quoted fields, truncation, rewrites, atomic replacement, rotation,
+//! deletion — the live tally equals a fresh one-pass read (`tally_csv`, through
+//! `batch::read`) of the complete records in the file as it is at the end, exactly,
+//! rejected rows and duplicates included. No test here depends on timing: every
+//! write is followed by polls, and the writer-thread test polls until the thread has
+//! finished, then once more.
+
+#![allow(clippy::unwrap_used, clippy::expect_used, clippy::panic)]
+
+use std::io::Write;
+use std::path::{Path, PathBuf};
+
+use closeout::batch;
+use closeout::follow::{ResetReason, Warning};
+use closeout::live::{HeaderChange, Live, LiveEvent};
+use closeout::study::Study;
+use closeout::tally::{Tally, tally_csv};
+use proptest::prelude::*;
+use proptest::test_runner::RngSeed;
+use rand::{Rng, SeedableRng};
+use rand_chacha::ChaCha8Rng;
+
+const STUDY: &str = r#"title = "follow test"
+[source]
+file = "responses.csv"
+id = "id"
+time = "t"
+[target]
+margin = 0.2
+confidence = 0.95
+decide_by = "wilson"
+[cells]
+by = ["region"]
+[[measure]]
+name = "q"
+column = "q1"
+yes = ["y"]
+no = ["n"]
+"#;
+
+struct Fixture {
+    _dir: tempfile::TempDir,
+    csv: PathBuf,
+    study: Study,
+}
+
+fn fixture() -> Fixture {
+    let dir = tempfile::tempdir().unwrap();
+    let study_path = dir.path().join("study.toml");
+    std::fs::write(&study_path, STUDY).unwrap();
+    let study = Study::load(&study_path).unwrap();
+    Fixture {
+        csv: dir.path().join("responses.csv"),
+        _dir: dir,
+        study,
+    }
+}
+
+fn append(path: &Path, bytes: &[u8]) {
+    let mut f = std::fs::OpenOptions::new()
+        .create(true)
+        .append(true)
+        .open(path)
+        .unwrap();
+    f.write_all(bytes).unwrap();
+}
+
+/// Write a file whole under a temporary name and rename it over `path`.
+fn replace(path: &Path, bytes: &[u8]) {
+    let temp = path.with_extension("tmp");
+    std::fs::write(&temp, bytes).unwrap();
+    std::fs::rename(&temp, path).unwrap();
+}
+
+/// A fresh one-pass read of the file as it is.
+fn fresh(study: &Study) -> Tally {
+    batch::read(study).unwrap()
+}
+
+/// The one-pass read of some bytes.
+fn one_pass(study: &Study, bytes: &[u8]) -> Tally {
+    tally_csv(|h| study.layout(h), bytes, b',').unwrap().1
+}
+
+fn poll(live: &mut Live) -> Vec<LiveEvent> {
+    live.poll().unwrap()
+}
+
+fn resets(events: &[LiveEvent]) -> Vec<ResetReason> {
+    events
+        .iter()
+        .filter_map(|e| match e {
+            LiveEvent::Reset { why, .. } => Some(*why),
+            _ => None,
+        })
+        .collect()
+}
+
+/// Rows with a rejected record (a bad time), a field-count rejection and a duplicate.
+const FIRST_RECORDS: &[&str] = &[
+    "id,region,q1,t\n",
+    "a,north,y,2026-05-01T09:00:00Z\n",
+    "b,north,n,2026-05-01T09:05:00Z\n",
+    "c,south,y,not-a-time\n",
+    "a,south,y,2026-05-01T09:10:00Z\n",
+    "d,south\n",
+    "e,\"so\nuth\",\"y\",2026-05-01T09:20:00Z\n",
+];
+const FIRST: &[u8] = b"id,region,q1,t\n\
+a,north,y,2026-05-01T09:00:00Z\n\
+b,north,n,2026-05-01T09:05:00Z\n\
+c,south,y,not-a-time\n\
+a,south,y,2026-05-01T09:10:00Z\n\
+d,south\n\
+e,\"so\nuth\",\"y\",2026-05-01T09:20:00Z\n";
+
+const MORE_RECORDS: &[&str] = &[
+    "f,north,y,2026-05-01T10:00:00Z\n",
+    "b,north,y,2026-05-01T10:01:00Z\n",
+    "g,\"north\",\"n\"\"\",\n",
+];
+const MORE: &[u8] = b"f,north,y,2026-05-01T10:00:00Z\n\
+b,north,y,2026-05-01T10:01:00Z\n\
+g,\"north\",\"n\"\"\",\n";
+
+#[test]
+fn the_fixture_has_rejections_and_duplicates() {
+    let f = fixture();
+    let all = [FIRST, MORE].concat();
+    let t = one_pass(&f.study, &all);
+    assert_eq!((t.rows_read, t.rejected, t.duplicates), (9, 2, 2));
+}
+
+#[test]
+fn appends_that_cut_lines_and_quoted_fields() {
+    let f = fixture();
+    let mut live = Live::new(f.study.clone());
+    assert_eq!(poll(&mut live), vec![LiveEvent::Waiting]);
+    let all = [FIRST, MORE].concat();
+    // Where each record (the header first) ends, from the records as written.
+    let records = [FIRST_RECORDS, MORE_RECORDS].concat();
+    let ends: Vec<usize> = records
+        .iter()
+        .scan(0, |at, r| {
+            *at += r.len();
+            Some(*at)
+        })
+        .collect();
+    assert_eq!(records.concat().as_bytes(), &all[..]);
+    let quoted_break = all.windows(3).position(|w| w == b"so\n").unwrap() + 3;
+    // Cut in the header, in a line, just after the quoted line break, just before
+    // the last line end, and at the end.
+    let cuts = [
+        5,
+        20,
+        quoted_break,
+        quoted_break + 4,
+        all.len() - 1,
+        all.len(),
+    ];
+    let mut from = 0;
+    for cut in cuts {
+        append(&f.csv, &all[from..cut]);
+        from = cut;
+        poll(&mut live);
+        match ends.iter().rev().find(|&&e| e <= cut) {
+            Some(&end) => {
+                assert_eq!(live.tally(), &one_pass(&f.study, &all[..end]), "cut {cut}")
+            }
+            None => assert!(live.header().is_none()),
+        }
+    }
+    assert_eq!(live.tally(), &fresh(&f.study));
+    assert_eq!(live.tally().rows_read, 9);
+}
+
+#[test]
+fn truncate_then_regrow_rebuilds_from_the_new_content() {
+    let f = fixture();
+    append(&f.csv, FIRST);
+    let mut live = Live::new(f.study.clone());
+    assert_eq!(poll(&mut live)[0], LiveEvent::Started);
+    assert_eq!(live.tally(), &fresh(&f.study));
+
+    // Seen empty: a reset with no header yet, then the new header starts counting.
+    std::fs::OpenOptions::new()
+        .write(true)
+        .open(&f.csv)
+        .unwrap()
+        .set_len(0)
+        .unwrap();
+    let events = poll(&mut live);
+    assert_eq!(resets(&events), vec![ResetReason::Truncated]);
+    assert_eq!(live.tally().rows_read, 0);
+    append(&f.csv, b"id,region,q1,t\nz,east,n,\n");
+    assert_eq!(poll(&mut live)[0], LiveEvent::Started);
+    assert_eq!(live.tally(), &fresh(&f.study));
+    assert_eq!(live.tally().rows_read, 1);
+
+    // Truncated and regrown past the old size before the next poll: the bytes before
+    // the offset changed, so it is a rewrite.
+    let file = std::fs::OpenOptions::new()
+        .write(true)
+        .open(&f.csv)
+        .unwrap();
+    file.set_len(0).unwrap();
+    drop(file);
+    append(&f.csv, MORE.strip_suffix(b"\n").unwrap());
+    let mut text = b"id,region,q1,t\n".to_vec();
+    text.extend_from_slice(MORE);
+    std::fs::write(&f.csv, &text).unwrap();
+    let events = poll(&mut live);
+    assert_eq!(resets(&events), vec![ResetReason::Rewritten]);
+    assert_eq!(live.tally(), &fresh(&f.study));
+    assert_eq!(live.tally().rows_read, 3);
+}
+
+#[test]
+fn a_rewrite_in_place_of_the_same_size_is_noticed() {
+    let f = fixture();
+    append(&f.csv, FIRST);
+    let mut live = Live::new(f.study.clone());
+    poll(&mut live);
+    let changed: Vec<u8> = FIRST
+        .iter()
+        .map(|&b| if b == b'y' { b'n' } else { b })
+        .collect();
+    let file = std::fs::OpenOptions::new()
+        .write(true)
+        .open(&f.csv)
+        .unwrap();
+    std::os::unix::fs::FileExt::write_all_at(&file, &changed, 0).unwrap();
+    drop(file);
+    let events = poll(&mut live);
+    assert_eq!(resets(&events), vec![ResetReason::Rewritten]);
+    assert_eq!(live.tally(), &fresh(&f.study));
+    assert_eq!(
+        live.tally().cells.values().next().unwrap().measures[0].successes,
+        0
+    );
+    // Nothing more happened: nothing more is said.
+    assert!(poll(&mut live).is_empty());
+}
+
+#[test]
+fn an_atomic_replace_with_a_grown_export_carries_on_without_a_reset() {
+    let f = fixture();
+    append(&f.csv, FIRST);
+    let mut live = Live::new(f.study.clone());
+    poll(&mut live);
+    let before = live.tally().clone();
+    replace(&f.csv, &[FIRST, MORE].concat());
+    let events = poll(&mut live);
+    assert!(resets(&events).is_empty(), "{events:?}");
+    assert!(events.contains(&LiveEvent::Warning(Warning::ReplacedButGrew)));
+    assert!(events.contains(&LiveEvent::Counted { records: 3 }));
+    assert_ne!(live.tally(), &before);
+    assert_eq!(live.tally(), &fresh(&f.study));
+}
+
+#[test]
+fn an_atomic_replace_with_a_different_export_resets() {
+    let f = fixture();
+    append(&f.csv, FIRST);
+    let mut live = Live::new(f.study.clone());
+    poll(&mut live);
+    // Same header, same length, one answer changed near the start.
+    let mut other = FIRST.to_vec();
+    other[26] = b'n';
+    other.extend_from_slice(MORE);
+    replace(&f.csv, &other);
+    let events = poll(&mut live);
+    assert_eq!(resets(&events), vec![ResetReason::Replaced]);
+    assert_eq!(live.tally(), &fresh(&f.study));
+    assert_eq!(live.tally().rows_read, 9);
+}
+
+#[test]
+fn rotation_waits_then_reads_the_new_file() {
+    let f = fixture();
+    append(&f.csv, FIRST);
+    let mut live = Live::new(f.study.clone());
+    poll(&mut live);
+    let before = live.tally().clone();
+    std::fs::rename(&f.csv, f.csv.with_extension("csv.1")).unwrap();
+    assert_eq!(poll(&mut live), vec![LiveEvent::Waiting]);
+    assert!(live.waiting());
+    assert!(poll(&mut live).is_empty());
+    assert_eq!(live.tally(), &before, "the last statistics stand");
+    append(&f.csv, b"id,region,q1,t\n");
+    append(&f.csv, MORE);
+    let events = poll(&mut live);
+    assert_eq!(resets(&events), vec![ResetReason::Replaced]);
+    assert!(!live.waiting());
+    assert_eq!(live.tally(), &fresh(&f.study));
+}
+
+#[test]
+fn delete_and_recreate() {
+    let f = fixture();
+    append(&f.csv, FIRST);
+    let mut live = Live::new(f.study.clone());
+    poll(&mut live);
+    // Re-created with the same start and more: resumed, nothing counted twice.
+    std::fs::remove_file(&f.csv).unwrap();
+    assert_eq!(poll(&mut live), vec![LiveEvent::Waiting]);
+    append(&f.csv, &[FIRST, MORE].concat());
+    let events = poll(&mut live);
+    assert_eq!(events[0], LiveEvent::Resumed);
+    assert!(resets(&events).is_empty());
+    assert_eq!(live.tally(), &fresh(&f.study));
+    // Re-created as another export: a reset.
+    std::fs::remove_file(&f.csv).unwrap();
+    assert_eq!(poll(&mut live), vec![LiveEvent::Waiting]);
+    append(&f.csv, b"id,region,q1,t\nq,west,y,\n");
+    let events = poll(&mut live);
+    // The file system may give the new file the inode number of the deleted one,
+    // and then it looks like the same file, shorter.
+    let why = resets(&events);
+    assert!(
+        why == [ResetReason::Replaced] || why == [ResetReason::Truncated],
+        "{events:?}"
+    );
+    assert_eq!(live.tally(), &fresh(&f.study));
+    assert_eq!(live.tally().rows_read, 1);
+}
+
+#[test]
+fn a_changed_header_is_mapped_by_name_or_refused() {
+    let f = fixture();
+    append(&f.csv, FIRST);
+    let mut live = Live::new(f.study.clone());
+    poll(&mut live);
+    let first = live.tally().clone();
+
+    // A column added and the order changed: every study column is still there.
+    replace(
+        &f.csv,
+        b"note,q1,region,id,t\nhi,y,north,a,\nho,n,south,b,2026-05-01T09:00:00Z\n",
+    );
+    let events = poll(&mut live);
+    assert_eq!(
+        events[0],
+        LiveEvent::Reset {
+            why: ResetReason::Replaced,
+            columns: Some(HeaderChange {
+                added: vec!["note".into()],
+                removed: vec![],
+            }),
+        }
+    );
+    assert_eq!(live.tally(), &fresh(&f.study));
+    let mapped = live.tally().clone();
+    assert_eq!(mapped.responses(), 2);
+
+    // A column the study reads is gone: refused, the last statistics stand, and
+    // records appended to that file are not counted.
+    replace(&f.csv, b"note,region,id,t\nhi,north,a,\n");
+    let events = poll(&mut live);
+    let LiveEvent::HeaderProblem { message, columns } = &events[0] else {
+        panic!("{events:?}");
+    };
+    assert!(message.contains("q1"), "{message}");
+    assert_eq!(
+        columns,
+        &Some(HeaderChange {
+            added: vec![],
+            removed: vec!["q1".into()],
+        })
+    );
+    assert!(live.problem().is_some());
+    append(&f.csv, b"ho,south,b,\n");
+    poll(&mut live);
+    assert_eq!(live.tally(), &mapped);
+    assert_ne!(live.tally(), &first);
+
+    // Put right: counted again from the start of the new file.
+    replace(&f.csv, FIRST);
+    let events = poll(&mut live);
+    assert_eq!(resets(&events), vec![ResetReason::Replaced]);
+    assert!(live.problem().is_none());
+    assert_eq!(live.tally(), &fresh(&f.study));
+    assert_eq!(live.tally(), &first);
+}
+
+#[test]
+fn a_writer_thread_appending_in_random_pieces() {
+    let f = fixture();
+    let mut text = b"\xef\xbb\xbfid,region,q1,t\r\n".to_vec();
+    let mut rng = ChaCha8Rng::seed_from_u64(20_261_202);
+    for i in 0..3000 {
+        let region = ["north", "south", "\"ea\r\nst\""][rng.random_range(0..3)];
+        let q1 = ["y", "n", "\"y\"", "", "dk"][rng.random_range(0..5)];
+        let id = rng.random_range(0..2500);
+        let t = if i % 7 == 0 {
+            "soon"
+        } else {
+            "2026-05-01T09:00:00Z"
+        };
+        let end = if rng.random_bool(0.5) { "\n" } else { "\r\n" };
+        text.extend_from_slice(format!("{id},{region},{q1},{t}{end}").as_bytes());
+        if i % 50 == 0 {
+            text.extend_from_slice(b"\r\n");
+        }
+    }
+    let expected = one_pass(&f.study, &text);
+    assert!(expected.duplicates > 0 && expected.rejected > 0);
+    let mut live = Live::new(f.study.clone());
+    let writer = {
+        let path = f.csv.clone();
+        let text = text.clone();
+        std::thread::spawn(move || {
+            let mut rng = ChaCha8Rng::seed_from_u64(5);
+            let mut file = std::fs::File::create(&path).unwrap();
+            let mut at = 0;
+            while at < text.len() {
+                let k = rng.random_range(1..400).min(text.len() - at);
+                file.write_all(&text[at..at + k]).unwrap();
+                at += k;
+                if rng.random_bool(0.1) {
+                    std::thread::yield_now();
+                }
+            }
+        })
+    };
+    let mut polls = 0u64;
+    while !writer.is_finished() {
+        live.poll().unwrap();
+        polls += 1;
+        // Whatever the moment, the records counted are a prefix of the file's.
+        assert!(live.tally().rows_read <= expected.rows_read);
+    }
+    writer.join().unwrap();
+    live.poll().unwrap();
+    assert!(polls > 0);
+    assert_eq!(live.tally(), &expected);
+    assert_eq!(live.tally(), &fresh(&f.study));
+}
+
+#[test]
+fn an_unbalanced_quote_is_rejected_as_too_long_once_it_ends() {
+    let f = fixture();
+    append(&f.csv, b"id,region,q1,t\na,north,y,\nb,\"north,y,\n");
+    let follower = closeout::follow::Follower::new(&f.csv, b',').with_record_limit(64);
+    let mut live = Live::with_follower(f.study.clone(), follower);
+    poll(&mut live);
+    let mut warned = 0;
+    for i in 0..20 {
+        append(&f.csv, format!("c{i},south,n,\n").as_bytes());
+        warned += poll(&mut live)
+            .iter()
+            .filter(|e| {
+                matches!(
+                    e,
+                    LiveEvent::Warning(Warning::LongRecord {
+                        offset: 26,
+                        line: 3,
+                        ..
+                    })
+                )
+            })
+            .count();
+    }
+    assert_eq!(warned, 1);
+    assert_eq!(live.tally().rows_read, 1);
+    append(&f.csv, b"\"\nd,south,y,\n");
+    poll(&mut live);
+    let t = live.tally();
+    assert_eq!((t.rows_read, t.rejected), (3, 1));
+    assert_eq!(t.first_rejections[0].line, 3);
+    assert_eq!(t.first_rejections[0].reason.kind(), "too_long");
+    assert_eq!(t.responses(), 2);
+}
+
+// ---- the property: any chunking gives the one-pass read of the complete prefix ----
+
+/// A field as written in the file: plain, or quoted with doubled quotes inside.
+fn field() -> impl Strategy<Value = String> {
+    prop_oneof![
+        3 => prop::sample::select(vec![
+            "y", "n", "", "north", "south", "dk", "2026-05-01T09:00:00Z", "later", "a", "b"
+        ])
+        .prop_map(str::to_string),
+        1 => "[yn ,\r\n\"a]{0,6}".prop_map(|s| format!("\"{}\"", s.replace('"', "\"\""))),
+    ]
+}
+
+#[derive(Clone, Debug)]
+struct Stream {
+    bytes: Vec<u8>,
+    /// Where each complete record (the header first) ends: just after the first byte
+    /// of its line end.
+    ends: Vec<usize>,
+}
+
+fn stream() -> impl Strategy<Value = Stream> {
+    let record = (
+        prop::collection::vec(field(), 3..=5),
+        any::<bool>(),
+        0usize..3,
+        any::<bool>(),
+    );
+    (
+        any::<bool>(),
+        any::<bool>(),
+        prop::collection::vec(record, 0..25),
+        prop::collection::vec(field(), 0..3),
+        any::<bool>(),
+    )
+        .prop_map(|(bom, crlf_header, records, tail, open_quote)| {
+            let mut bytes = Vec::new();
+            if bom {
+                bytes.extend_from_slice(b"\xef\xbb\xbf");
+            }
+            bytes.extend_from_slice(b"id,region,q1,t");
+            let mut ends = vec![bytes.len() + 1];
+            bytes.extend_from_slice(if crlf_header { b"\r\n" } else { b"\n" });
+            for (fields, crlf, blanks, blank_crlf) in records {
+                for _ in 0..blanks {
+                    bytes.extend_from_slice(if blank_crlf { b"\r\n" } else { b"\n" });
+                }
+                bytes.extend_from_slice(fields.join(",").as_bytes());
+                ends.push(bytes.len() + 1);
+                bytes.extend_from_slice(if crlf { b"\r\n" } else { b"\n" });
+            }
+            // An unfinished last record: fields without a line end, perhaps with a
+            // quote still open (and a line break inside it).
+            bytes.extend_from_slice(tail.join(",").as_bytes());
+            if open_quote {
+                bytes.extend_from_slice(b",\"still\r\nopen");
+            }
+            Stream { bytes, ends }
+        })
+}
+
+proptest! {
+    #![proptest_config(ProptestConfig {
+        cases: 128,
+        rng_seed: RngSeed::Fixed(20_261_202),
+        ..ProptestConfig::default()
+    })]
+
+    #[test]
+    fn any_chunking_counts_the_complete_records_exactly_once(
+        s in stream(),
+        chunks in prop::collection::vec(1usize..40, 1..60),
+    ) {
+        let f = fixture();
+        std::fs::write(&f.csv, b"").unwrap();
+        let mut live = Live::new(f.study.clone());
+        let mut at = 0;
+        let mut sizes = chunks.iter().cycle();
+        while at < s.bytes.len() {
+            let k = (*sizes.next().unwrap()).min(s.bytes.len() - at);
+            append(&f.csv, &s.bytes[at..at + k]);
+            at += k;
+            live.poll().unwrap();
+            let complete = s.ends.iter().rev().find(|&&e| e <= at).copied();
+            match complete {
+                None => prop_assert!(live.header().is_none()),
+                Some(end) => {
+                    let expected = one_pass(&f.study, &s.bytes[..end]);
+                    prop_assert_eq!(live.tally(), &expected, "after {} bytes", at);
+                }
+            }
+        }
+        let last = *s.ends.last().unwrap();
+        prop_assert_eq!(live.tally(), &one_pass(&f.study, &s.bytes[..last]));
+    }
+}
