@@ -4,7 +4,8 @@
 //!
 //! The modules follow the data flow: `study` reads and checks the study file;
 //! `follow` hands out the complete records of a growing file exactly once, and `live`
-//! counts them into a tally that always equals a fresh read; `rows`
+//! counts them into a tally that always equals a fresh read; `hints` turns file
+//! events and a safety tick into one channel; `rows`
 //! turns a CSV record into a response or a rejection; `tally` keeps the running sums
 //! per cell and measure; `batch` reads a whole file once; `bounds` computes margins
 //! and sizes from counts; `assess` turns a study and its tally into a `Snapshot`;
@@ -14,6 +15,7 @@ pub mod assess;
 pub mod batch;
 pub mod bounds;
 pub mod follow;
+pub mod hints;
 pub mod live;
 pub mod report;
 pub mod rows;

@@ -7,6 +7,8 @@ use std::process::ExitCode;
 use clap::{Parser, Subcommand};
 
 use closeout::bounds::{self, Level, Query, SizeQuery};
+use closeout::hints::{self, Hint, Hints};
+use closeout::live::Live;
 use closeout::study::Study;
 use closeout::{assess, batch, report};
 
@@ -68,8 +70,18 @@ enum Command {
         #[arg(long)]
         exit_code: bool,
         /// The moment rates and ETAs refer to, RFC 3339 (default: now).
-        #[arg(long)]
+        #[arg(long, conflicts_with = "follow")]
         as_of: Option<String>,
+        /// Keep following the responses file as it grows, until interrupted: a line
+        /// when the verdict changes (text), or the snapshot whenever the tallies change (json).
+        #[arg(long)]
+        follow: bool,
+        /// With --follow: exit 0 as soon as the study is ready to close.
+        #[arg(long, requires = "follow")]
+        until_ready: bool,
+        /// With --follow: look at the file every second instead of watching its folder.
+        #[arg(long, requires = "follow")]
+        poll: bool,
     },
 }
 
@@ -150,7 +162,24 @@ fn run(cli: Cli) -> Result<Done, Usage> {
             format,
             exit_code,
             as_of,
+            follow,
+            until_ready,
+            poll,
         } => {
+            if follow {
+                let json = match format {
+                    Format::Text => false,
+                    Format::Json => true,
+                    Format::Csv => {
+                        return Err(Usage(
+                            "--follow prints text or json: use --format text or --format json"
+                                .into(),
+                        ));
+                    }
+                };
+                let study = Study::load(&study).map_err(|e| Usage(e.to_string()))?;
+                return Ok(follow_status(study, json, until_ready, poll, exit_code));
+            }
             let as_of = match as_of {
                 Some(text) => text.parse::<jiff::Timestamp>().map_err(|e| {
                     Usage(format!(
@@ -174,6 +203,93 @@ fn run(cli: Cli) -> Result<Done, Usage> {
             };
             Ok(Done { text, code })
         }
+    }
+}
+
+/// Print lines, flushing; false when standard output is gone (a closed pipe).
+fn print(lines: &[String], err: &[String]) -> bool {
+    for line in err {
+        eprintln!("{line}");
+    }
+    let mut out = std::io::stdout().lock();
+    for line in lines {
+        if writeln!(out, "{line}").is_err() {
+            return false;
+        }
+    }
+    out.flush().is_ok()
+}
+
+/// `status --follow`: one loop over one channel of hints; the loop owns all state.
+fn follow_status(study: Study, json: bool, until_ready: bool, poll: bool, exit_code: bool) -> Done {
+    let hints = Hints::start(&study.source.file, poll, hints::TICK);
+    if let Some(e) = &hints.watch_error {
+        eprintln!(
+            "closeout: cannot watch the folder of the responses file ({e}): looking every second instead"
+        );
+    }
+    let stop = hints.sender();
+    if let Err(e) = ctrlc::set_handler(move || {
+        let _ = stop.send(Hint::Stop);
+    }) {
+        eprintln!("closeout: cannot catch Ctrl-C ({e}); it will end the program at once");
+    }
+    let mut live = Live::new(study);
+    let mut output = report::FollowOutput::new(json);
+    let mut last_error: Option<String> = None;
+    let mut snapshot = assess::assess(live.study(), live.tally(), jiff::Timestamp::now());
+    let mut hint = Some(Hint::File);
+    loop {
+        match hint {
+            None | Some(Hint::Stop) => {
+                let text = output.last_state(&snapshot);
+                print(&[text], &[]);
+                let code = u8::from(exit_code && !snapshot.ready_to_close);
+                return Done {
+                    text: String::new(),
+                    code,
+                };
+            }
+            Some(Hint::File | Hint::Tick) => {}
+        }
+        // Fold a burst of hints into one look; a stop waiting in it still counts.
+        let mut stopping = false;
+        while let Some(h) = hints.try_next() {
+            stopping |= h == Hint::Stop;
+        }
+        let events = match live.poll() {
+            Ok(events) => {
+                last_error = None;
+                events
+            }
+            Err(e) => {
+                let message = format!("closeout: {e}");
+                if last_error.as_deref() != Some(message.as_str()) {
+                    eprintln!("{message}");
+                    last_error = Some(message);
+                }
+                Vec::new()
+            }
+        };
+        snapshot = assess::assess(live.study(), live.tally(), jiff::Timestamp::now());
+        let lines = output.update(&events, &snapshot);
+        if !print(&lines.out, &lines.err) {
+            return Done {
+                text: String::new(),
+                code: 0,
+            };
+        }
+        if until_ready && snapshot.ready_to_close {
+            return Done {
+                text: String::new(),
+                code: 0,
+            };
+        }
+        hint = if stopping {
+            Some(Hint::Stop)
+        } else {
+            hints.next()
+        };
     }
 }
 

@@ -569,3 +569,97 @@ proptest! {
         prop_assert_eq!(live.tally(), &one_pass(&f.study, &s.bytes[..last]));
     }
 }
+
+#[test]
+fn follow_output_prints_when_the_verdict_or_rejections_change() {
+    use closeout::assess::assess;
+    use closeout::report::FollowOutput;
+    let f = fixture();
+    let as_of: jiff::Timestamp = "2026-05-01T12:00:00Z".parse().unwrap();
+    let mut live = Live::new(f.study.clone());
+    let mut text = FollowOutput::new(false);
+    let mut json = FollowOutput::new(true);
+    let mut step = |live: &mut Live| {
+        let events = poll(live);
+        let snapshot = assess(live.study(), live.tally(), as_of);
+        (
+            text.update(&events, &snapshot),
+            json.update(&events, &snapshot),
+        )
+    };
+    // Missing: a notice and the first summary; JSON prints the first snapshot.
+    let (t, j) = step(&mut live);
+    assert_eq!(t.out.len(), 2, "{t:?}");
+    assert!(t.out[0].contains("missing"));
+    assert_eq!((j.out.len(), j.err.len()), (1, 1));
+    append(&f.csv, b"id,region,q1,t\na,north,y,\n");
+    let (t, j) = step(&mut live);
+    // One cell seen, not met: the verdict changed from no planned cell.
+    assert_eq!(t.out.len(), 1, "{t:?}");
+    assert_eq!(j.out.len(), 1);
+    // Another accepted row, the verdict unchanged: no text line, a JSON line.
+    append(&f.csv, b"b,north,n,\n");
+    let (t, j) = step(&mut live);
+    assert!(t.out.is_empty(), "{t:?}");
+    assert_eq!(j.out.len(), 1);
+    let v: serde_json::Value = serde_json::from_str(&j.out[0]).unwrap();
+    assert_eq!(v["responses"], 2);
+    // A rejected row: a text line.
+    append(&f.csv, b"c,north\n");
+    let (t, _) = step(&mut live);
+    assert_eq!(t.out.len(), 1);
+    assert!(t.out[0].contains("1 rejected"), "{t:?}");
+    // Nothing new: nothing printed.
+    let (t, j) = step(&mut live);
+    assert!(t.out.is_empty() && j.out.is_empty());
+    // A truncation: a notice and a summary, and a JSON line.
+    replace(&f.csv, b"id,region,q1,t\n");
+    let (t, j) = step(&mut live);
+    assert_eq!(t.out.len(), 2, "{t:?}");
+    assert!(t.out[0].contains("replaced"), "{t:?}");
+    assert_eq!(j.out.len(), 1);
+}
+
+/// The sample study and the generated 50,000-row file (whose batch tallies
+/// `tests/status.rs` checks against pandas), copied into a temporary folder in
+/// seeded random pieces with a poll after each: the live tally ends equal to the
+/// batch read.
+#[test]
+fn the_sample_and_the_generated_file_followed_in_pieces_equal_the_batch_read() {
+    let root = PathBuf::from(env!("CARGO_MANIFEST_DIR"));
+    for (study_file, csv_name, seed) in [
+        (
+            "sample-data/lakeside-residents/study.toml",
+            "responses.csv",
+            1,
+        ),
+        (
+            "tests/data/generated-50k.study.toml",
+            "generated-50k.csv",
+            2,
+        ),
+    ] {
+        let original = Study::load(&root.join(study_file)).unwrap();
+        let bytes = std::fs::read(&original.source.file).unwrap();
+        let dir = tempfile::tempdir().unwrap();
+        let study_path = dir.path().join("study.toml");
+        std::fs::copy(root.join(study_file), &study_path).unwrap();
+        let study = Study::load(&study_path).unwrap();
+        assert_eq!(study.source.file, dir.path().join(csv_name));
+        let mut live = Live::new(study.clone());
+        let mut rng = ChaCha8Rng::seed_from_u64(seed);
+        let mut at = 0;
+        while at < bytes.len() {
+            let k = rng.random_range(1..200_000).min(bytes.len() - at);
+            append(&study.source.file, &bytes[at..at + k]);
+            at += k;
+            live.poll().unwrap();
+        }
+        assert_eq!(
+            live.tally(),
+            &batch::read(&original).unwrap(),
+            "{study_file}"
+        );
+        assert!(live.tally().rejected > 0 && live.tally().duplicates > 0);
+    }
+}
