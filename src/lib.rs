@@ -9,11 +9,13 @@
 //! turns a CSV record into a response or a rejection; `tally` keeps the running sums
 //! per cell and measure; `batch` reads a whole file once; `bounds` computes margins
 //! and sizes from counts; `assess` turns a study and its tally into a `Snapshot`;
-//! `report` writes a snapshot (or a margin or size question) as text, JSON or CSV.
+//! `report` writes a snapshot (or a margin or size question) as text, JSON or CSV;
+//! `event_log` appends what changed, and when, to the study's event log.
 
 pub mod assess;
 pub mod batch;
 pub mod bounds;
+pub mod event_log;
 pub mod follow;
 pub mod hints;
 pub mod live;

@@ -16,6 +16,10 @@ use crate::rows::{Layout, Reason, Rejection};
 use crate::study::Study;
 use crate::tally::Tally;
 
+/// The most follower polls one [`Live::poll`] makes (each reads at most
+/// [`crate::follow::READ_LIMIT`] bytes).
+pub const POLLS_AT_ONCE: usize = 16;
+
 /// Columns added to and removed from the header, by name, in header order.
 #[derive(Clone, Debug, PartialEq, Eq)]
 pub struct HeaderChange {
@@ -136,11 +140,19 @@ impl Live {
         self.repeated_headers
     }
 
+    /// Whether the last [`Live::poll`] read everything up to the size it saw. When
+    /// false, poll again at once.
+    pub fn caught_up(&self) -> bool {
+        self.follower.caught_up()
+    }
+
     /// Look at the file, count what is new, and say what happened. Polls the
-    /// follower until it has caught up with the size it saw.
+    /// follower until it has caught up with the size it saw, or has read
+    /// [`POLLS_AT_ONCE`] pieces (so a caller's loop is never starved by a file that
+    /// grows faster than it is read: see [`Live::caught_up`]).
     pub fn poll(&mut self) -> Result<Vec<LiveEvent>, FollowError> {
         let mut events = Vec::new();
-        loop {
+        for _ in 0..POLLS_AT_ONCE {
             let change = self.follower.poll()?;
             self.apply(change, &mut events);
             for warning in self.follower.take_warnings() {
@@ -150,9 +162,10 @@ impl Live {
                 events.push(LiveEvent::Warning(warning));
             }
             if self.follower.caught_up() {
-                return Ok(events);
+                break;
             }
         }
+        Ok(events)
     }
 
     fn apply(&mut self, change: Change, events: &mut Vec<LiveEvent>) {

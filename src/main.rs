@@ -7,6 +7,7 @@ use std::process::ExitCode;
 use clap::{Parser, Subcommand};
 
 use closeout::bounds::{self, Level, Query, SizeQuery};
+use closeout::event_log::EventLog;
 use closeout::hints::{self, Hint, Hints};
 use closeout::live::Live;
 use closeout::study::Study;
@@ -178,7 +179,21 @@ fn run(cli: Cli) -> Result<Done, Usage> {
                     }
                 };
                 let study = Study::load(&study).map_err(|e| Usage(e.to_string()))?;
-                return Ok(follow_status(study, json, until_ready, poll, exit_code));
+                let log = match &study.log {
+                    Some(path) => Some(
+                        EventLog::open(path, &study.source.file, &study.study_path)
+                            .map_err(|e| Usage(e.to_string()))?,
+                    ),
+                    None => None,
+                };
+                return Ok(follow_status(
+                    study,
+                    log,
+                    json,
+                    until_ready,
+                    poll,
+                    exit_code,
+                ));
             }
             let as_of = match as_of {
                 Some(text) => text.parse::<jiff::Timestamp>().map_err(|e| {
@@ -221,7 +236,14 @@ fn print(lines: &[String], err: &[String]) -> bool {
 }
 
 /// `status --follow`: one loop over one channel of hints; the loop owns all state.
-fn follow_status(study: Study, json: bool, until_ready: bool, poll: bool, exit_code: bool) -> Done {
+fn follow_status(
+    study: Study,
+    mut log: Option<EventLog>,
+    json: bool,
+    until_ready: bool,
+    poll: bool,
+    exit_code: bool,
+) -> Done {
     let hints = Hints::start(&study.source.file, poll, hints::TICK);
     if let Some(e) = &hints.watch_error {
         eprintln!(
@@ -237,6 +259,7 @@ fn follow_status(study: Study, json: bool, until_ready: bool, poll: bool, exit_c
     let mut live = Live::new(study);
     let mut output = report::FollowOutput::new(json);
     let mut last_error: Option<String> = None;
+    let mut last_log_error: Option<String> = None;
     let mut snapshot = assess::assess(live.study(), live.tally(), jiff::Timestamp::now());
     let mut hint = Some(Hint::File);
     loop {
@@ -272,6 +295,15 @@ fn follow_status(study: Study, json: bool, until_ready: bool, poll: bool, exit_c
             }
         };
         snapshot = assess::assess(live.study(), live.tally(), jiff::Timestamp::now());
+        if let Some(l) = &mut log
+            && let Err(e) = l.record(&events, &snapshot)
+        {
+            let message = format!("closeout: {e}");
+            if last_log_error.as_deref() != Some(message.as_str()) {
+                eprintln!("{message}");
+                last_log_error = Some(message);
+            }
+        }
         let lines = output.update(&events, &snapshot);
         if !print(&lines.out, &lines.err) {
             return Done {
@@ -287,6 +319,8 @@ fn follow_status(study: Study, json: bool, until_ready: bool, poll: bool, exit_c
         }
         hint = if stopping {
             Some(Hint::Stop)
+        } else if !live.caught_up() {
+            Some(Hint::File)
         } else {
             hints.next()
         };

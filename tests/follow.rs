@@ -663,3 +663,94 @@ fn the_sample_and_the_generated_file_followed_in_pieces_equal_the_batch_read() {
         assert!(live.tally().rejected > 0 && live.tally().duplicates > 0);
     }
 }
+
+#[test]
+fn the_event_log_appends_status_changes_resets_and_readiness() {
+    use closeout::assess::assess;
+    use closeout::event_log::{EventLog, LogError};
+    let f = fixture();
+    let log_path = f.csv.with_file_name("events.jsonl");
+    std::fs::write(&log_path, "{\"from an earlier run\":true}\n").unwrap();
+    let mut log = EventLog::open(&log_path, &f.csv, &f.study.study_path).unwrap();
+    let as_of: jiff::Timestamp = "2026-05-01T12:00:00Z".parse().unwrap();
+    let mut live = Live::new(f.study.clone());
+    let step = |live: &mut Live, log: &mut EventLog| {
+        let events = poll(live);
+        log.record(&events, &assess(live.study(), live.tally(), as_of))
+            .unwrap();
+    };
+    append(&f.csv, b"id,region,q1,t\n1,north,y,\n");
+    step(&mut live, &mut log);
+    // 40 answers in north: met at +-20 points (Wilson); south appears, open.
+    let mut rows = String::new();
+    for i in 0..40 {
+        rows.push_str(&format!(
+            "n{i},north,{},\n",
+            if i % 2 == 0 { "y" } else { "n" }
+        ));
+    }
+    rows.push_str("s1,south,y,\n");
+    append(&f.csv, rows.as_bytes());
+    step(&mut live, &mut log);
+    step(&mut live, &mut log); // nothing new: nothing logged
+    let mut rows = String::new();
+    for i in 0..40 {
+        rows.push_str(&format!(
+            "s{i}x,south,{},\n",
+            if i % 2 == 0 { "y" } else { "n" }
+        ));
+    }
+    append(&f.csv, rows.as_bytes());
+    step(&mut live, &mut log);
+    replace(&f.csv, b"id,region,q1,t\n1,north,y,\n");
+    step(&mut live, &mut log);
+
+    let text = std::fs::read_to_string(&log_path).unwrap();
+    let lines: Vec<serde_json::Value> = text
+        .lines()
+        .map(|l| serde_json::from_str(l).unwrap())
+        .collect();
+    let kinds: Vec<String> = lines[1..]
+        .iter()
+        .map(|l| {
+            let event = l["event"].as_str().unwrap();
+            match l["label"].as_str() {
+                Some(label) => format!("{event} {label} {}", l["to"].as_str().unwrap_or("gone")),
+                None => event.to_string(),
+            }
+        })
+        .collect();
+    assert_eq!(lines[0]["from an earlier run"], true, "never truncated");
+    assert_eq!(
+        kinds,
+        [
+            "cell_status north open",
+            // Worst first within one look.
+            "cell_status south open",
+            "cell_status north met",
+            "cell_status south met",
+            "ready_to_close",
+            "reset",
+            "cell_status north open",
+            "cell_status south gone",
+            "no_longer_ready",
+        ],
+        "{text}"
+    );
+    let met = &lines[3];
+    assert_eq!(met["from"], "open");
+    assert_eq!(met["method"], "wilson");
+    assert_eq!(met["measures"][0]["n"], 41);
+    assert_eq!(met["time"], "2026-05-01T12:00:00Z");
+    assert!(met["measures"][0]["margin"].as_f64().unwrap() <= 0.2);
+    assert_eq!(lines[6]["why"], "replaced");
+    // The files the user gave us are refused.
+    assert!(matches!(
+        EventLog::open(&f.csv, &f.csv, &f.study.study_path),
+        Err(LogError::NotOurs { .. })
+    ));
+    assert!(matches!(
+        EventLog::open(&f.study.study_path, &f.csv, &f.study.study_path),
+        Err(LogError::NotOurs { .. })
+    ));
+}

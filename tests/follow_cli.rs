@@ -29,6 +29,10 @@ name = "q"
 column = "q1"
 yes = ["y"]
 no = ["n"]
+[[quota]]
+minimum = 122
+[log]
+file = "events.jsonl"
 "#;
 
 fn setup() -> tempfile::TempDir {
@@ -98,12 +102,13 @@ fn follow_until_ready(extra: &[&str]) {
     assert_eq!(first["ready_to_close"], false);
     assert_eq!(first["responses"], 2);
     assert_eq!(first["duplicates"], 1);
-    // Enough answers for ±20 points under Wilson, the last line cut in two.
-    let mut rows = String::new();
+    // A rejected row, then the 120 responses that reach the minimum of 122 (the
+    // margin is met long before), the last one cut in two: readiness comes exactly
+    // with the last line end, whenever the program looks.
+    let mut rows = String::from("bad\n");
     for i in 0..120 {
         rows.push_str(&format!("r{i},{}\n", if i % 3 == 0 { "y" } else { "n" }));
     }
-    rows.push_str("bad\n");
     let (a, b) = rows.split_at(rows.len() - 3);
     append(dir.path(), a);
     append(dir.path(), b);
@@ -118,6 +123,11 @@ fn follow_until_ready(extra: &[&str]) {
     assert_eq!(last["responses"], 122);
     assert_eq!(last["rows_rejected"], 1);
     assert_eq!(last["duplicates"], 1);
+    // The event log ends with the moment the study became ready.
+    let log = std::fs::read_to_string(dir.path().join("events.jsonl")).unwrap();
+    let entry: Value = serde_json::from_str(log.lines().last().unwrap()).unwrap();
+    assert_eq!(entry["event"], "ready_to_close", "{log}");
+    assert_eq!(entry["responses"], 122);
     // Every snapshot but the last is still collecting.
     assert!(
         rest[..rest.len() - 1]
