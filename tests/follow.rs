@@ -754,3 +754,67 @@ fn the_event_log_appends_status_changes_resets_and_readiness() {
         Err(LogError::NotOurs { .. })
     ));
 }
+
+/// A long run: a writer thread appends `CLOSEOUT_SOAK_ROWS` rows (default 1,000,000)
+/// in random pieces, and now and then regenerates the whole export under a
+/// temporary name and renames it over the file (a grown export), while the live
+/// tally polls as fast as it can. At the end the live tally equals the batch read.
+/// Run with `cargo test --release --test follow soak -- --ignored --nocapture`.
+#[test]
+#[ignore]
+fn soak_a_long_run_of_appends_and_regenerated_exports() {
+    let rows: usize = std::env::var("CLOSEOUT_SOAK_ROWS")
+        .ok()
+        .and_then(|v| v.parse().ok())
+        .unwrap_or(1_000_000);
+    let f = fixture();
+    std::fs::write(&f.csv, b"id,region,q1,t\n").unwrap();
+    let mut live = Live::new(f.study.clone());
+    let path = f.csv.clone();
+    let writer = std::thread::spawn(move || {
+        let mut rng = ChaCha8Rng::seed_from_u64(99);
+        let mut all = b"id,region,q1,t\n".to_vec();
+        let mut file = std::fs::OpenOptions::new()
+            .append(true)
+            .open(&path)
+            .unwrap();
+        let mut replaced = 0;
+        for i in 0..rows {
+            let region = ["north", "south", "\"we\nst\""][rng.random_range(0..3)];
+            let q1 = ["y", "n", "", "dk"][rng.random_range(0..4)];
+            let id = rng.random_range(0..rows as u64 * 9 / 10);
+            let row = format!("{id},{region},{q1},2026-05-01T09:00:00Z\n");
+            let piece = row.as_bytes();
+            let cut = rng.random_range(0..piece.len());
+            file.write_all(&piece[..cut]).unwrap();
+            file.write_all(&piece[cut..]).unwrap();
+            all.extend_from_slice(piece);
+            if i % 200_000 == 199_999 {
+                replace(&path, &all);
+                file = std::fs::OpenOptions::new()
+                    .append(true)
+                    .open(&path)
+                    .unwrap();
+                replaced += 1;
+            }
+        }
+        replaced
+    });
+    let mut polls = 0u64;
+    let mut resets = 0;
+    while !writer.is_finished() {
+        resets += self::resets(&live.poll().unwrap()).len();
+        polls += 1;
+    }
+    let replaced = writer.join().unwrap();
+    while {
+        live.poll().unwrap();
+        !live.caught_up()
+    } {}
+    eprintln!(
+        "{rows} rows, {polls} polls, {replaced} replacements, {resets} resets, {} responses",
+        live.tally().responses()
+    );
+    assert_eq!(resets, 0, "a regenerated export that grew never resets");
+    assert_eq!(live.tally(), &fresh(&f.study));
+}
