@@ -28,7 +28,10 @@
 //! end"), at most [`READ_LIMIT`] bytes per poll ([`Follower::caught_up`] says
 //! whether to poll again at once), and pushed into `csv_core`'s parser, which is
 //! never told that the input ended: a half-written last line or a quoted field still
-//! open is held until its line end arrives. A record longer than the limit (an
+//! open is held until its line end arrives. The bytes of a record still open live
+//! in the parser's state, so the next poll reads on from where this one stopped
+//! instead of reading the open record again from its start (and the fingerprint of
+//! the bytes before the read offset covers them). A record longer than the limit (an
 //! unbalanced quote that swallows the rest of the file) is reported once with its
 //! offset and then counted without its fields, so memory never grows with the file.
 

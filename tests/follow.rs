@@ -818,3 +818,43 @@ fn soak_a_long_run_of_appends_and_regenerated_exports() {
     assert_eq!(resets, 0, "a regenerated export that grew never resets");
     assert_eq!(live.tally(), &fresh(&f.study));
 }
+
+#[test]
+fn a_utf16_file_is_an_error_until_it_is_replaced_by_utf8() {
+    let f = fixture();
+    let utf16: Vec<u8> = "\u{feff}id,region,q1,t\na,north,y,\n"
+        .encode_utf16()
+        .flat_map(u16::to_le_bytes)
+        .collect();
+    std::fs::write(&f.csv, &utf16).unwrap();
+    let mut live = Live::new(f.study.clone());
+    for _ in 0..2 {
+        let e = live.poll().unwrap_err();
+        assert!(e.to_string().contains("UTF-16"), "{e}");
+    }
+    assert_eq!(live.tally().rows_read, 0);
+    replace(&f.csv, FIRST);
+    assert_eq!(poll(&mut live)[0], LiveEvent::Started);
+    assert_eq!(live.tally(), &fresh(&f.study));
+}
+
+#[test]
+fn records_repeating_the_header_are_skipped_and_counted() {
+    let f = fixture();
+    // Two exports joined, the second with its own byte-order mark.
+    let mut joined = FIRST.to_vec();
+    joined.extend_from_slice(b"\xef\xbb\xbfid,region,q1,t\n");
+    joined.extend_from_slice(MORE);
+    append(&f.csv, &joined);
+    let mut live = Live::new(f.study.clone());
+    let events = poll(&mut live);
+    assert!(events.contains(&LiveEvent::Warning(Warning::RepeatedHeader { line: 9 })));
+    assert_eq!(live.repeated_headers(), 1);
+    // Counted as if the repeated header were not there (line numbers stay true).
+    let t = live.tally();
+    assert_eq!(t.rows_read, 9);
+    assert_eq!(
+        t.rejected,
+        one_pass(&f.study, &[FIRST, MORE].concat()).rejected
+    );
+}

@@ -195,3 +195,25 @@ fn follow_refuses_csv_and_as_of() {
         assert_eq!(out.status.code(), Some(2), "{args:?}");
     }
 }
+
+#[test]
+fn a_missing_file_is_waited_for_then_read() {
+    let dir = setup();
+    std::fs::remove_file(dir.path().join("responses.csv")).unwrap();
+    let (mut child, lines) = start(dir.path(), &["--follow", "--until-ready"]);
+    let notice = next_line(&lines);
+    assert!(notice.contains("missing"), "{notice}");
+    let summary = next_line(&lines);
+    assert!(summary.contains("0 responses"), "{summary}");
+    let mut rows = String::from("id,q1\n");
+    for i in 0..122 {
+        rows.push_str(&format!("r{i},{}\n", if i % 2 == 0 { "y" } else { "n" }));
+    }
+    std::fs::write(dir.path().join("responses.csv"), rows).unwrap();
+    let status = wait(&mut child);
+    assert!(status.success(), "{status:?}");
+    let rest: Vec<String> = lines.iter().collect();
+    let last = rest.last().unwrap();
+    assert!(last.contains("122 responses"), "{rest:?}");
+    assert!(last.contains("READY TO CLOSE"), "{rest:?}");
+}
