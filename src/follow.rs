@@ -55,8 +55,8 @@ pub const FINGERPRINT: usize = 4096;
 /// their fields.
 pub const RECORD_LIMIT: u64 = 1 << 20;
 
-/// The most bytes one poll reads.
-pub const READ_LIMIT: u64 = 8 << 20;
+/// The most bytes one poll reads (so the records one poll hands out stay a few MB).
+pub const READ_LIMIT: u64 = 1 << 20;
 
 const BLOCK: usize = 64 * 1024;
 

@@ -18,7 +18,7 @@ use crate::tally::Tally;
 
 /// The most follower polls one [`Live::poll`] makes (each reads at most
 /// [`crate::follow::READ_LIMIT`] bytes).
-pub const POLLS_AT_ONCE: usize = 16;
+pub const POLLS_AT_ONCE: usize = 64;
 
 /// Columns added to and removed from the header, by name, in header order.
 #[derive(Clone, Debug, PartialEq, Eq)]
