@@ -86,6 +86,11 @@ impl Hints {
     }
 }
 
+/// Whether an event on these paths concerns the file of that name.
+fn concerns(paths: &[PathBuf], name: Option<&std::ffi::OsStr>) -> bool {
+    paths.iter().any(|p| p.file_name() == name)
+}
+
 fn watch(file: &Path, sender: Sender<Hint>) -> notify::Result<RecommendedWatcher> {
     let name: Option<OsString> = file.file_name().map(OsString::from);
     let parent: PathBuf = match file.parent() {
@@ -94,10 +99,7 @@ fn watch(file: &Path, sender: Sender<Hint>) -> notify::Result<RecommendedWatcher
     };
     let mut watcher = notify::recommended_watcher(move |event: notify::Result<notify::Event>| {
         let relevant = match &event {
-            Ok(event) => event
-                .paths
-                .iter()
-                .any(|p| p.file_name().map(OsString::from) == name),
+            Ok(event) => concerns(&event.paths, name.as_deref()),
             // An error from the watcher: poll anyway.
             Err(_) => true,
         };
@@ -107,4 +109,53 @@ fn watch(file: &Path, sender: Sender<Hint>) -> notify::Result<RecommendedWatcher
     })?;
     watcher.watch(&parent, RecursiveMode::NonRecursive)?;
     Ok(watcher)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// A change to the file arrives as a hint from the watcher (the tick is an hour
+    /// away); the deadline is generous and only bounds a failure.
+    #[test]
+    fn a_write_to_the_file_is_a_hint_and_the_sender_shares_the_channel() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("responses.csv");
+        let hints = Hints::start(&path, false, Duration::from_secs(3600));
+        assert!(hints.watching(), "{:?}", hints.watch_error);
+        std::fs::write(&path, "a,b\n").unwrap();
+        let got = hints.receiver.recv_timeout(Duration::from_secs(60));
+        assert_eq!(got, Ok(Hint::File));
+        hints.sender().send(Hint::Stop).unwrap();
+        // Drain the file hints of the writes; the stop follows them.
+        let mut rest = Vec::new();
+        while let Ok(h) = hints.receiver.recv_timeout(Duration::from_secs(60)) {
+            rest.push(h);
+            if h == Hint::Stop {
+                break;
+            }
+        }
+        assert_eq!(rest.last(), Some(&Hint::Stop));
+        assert!(rest.iter().all(|&h| h != Hint::Tick));
+    }
+
+    #[test]
+    fn only_events_on_the_file_name_count() {
+        let name = Some(std::ffi::OsStr::new("responses.csv"));
+        let p = |s: &str| PathBuf::from(s);
+        assert!(concerns(&[p("/d/responses.csv")], name));
+        // A rename names both ends; either may be ours.
+        assert!(concerns(&[p("/d/x.tmp"), p("/d/responses.csv")], name));
+        assert!(!concerns(&[p("/d/responses.csv.1")], name));
+        assert!(!concerns(&[p("/d/other.csv"), p("/d")], name));
+        assert!(!concerns(&[], name));
+    }
+
+    #[test]
+    fn polling_only_has_no_watcher_and_ticks() {
+        let dir = tempfile::tempdir().unwrap();
+        let hints = Hints::start(&dir.path().join("r.csv"), true, Duration::from_millis(1));
+        assert!(!hints.watching());
+        assert_eq!(hints.next(), Some(Hint::Tick));
+    }
 }
