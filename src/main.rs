@@ -221,18 +221,25 @@ fn run(cli: Cli) -> Result<Done, Usage> {
     }
 }
 
-/// Print lines, flushing; false when standard output is gone (a closed pipe).
-fn print(lines: &[String], err: &[String]) -> bool {
+/// Print lines, flushing. `Err` carries the exit code when standard output is gone:
+/// 0 for a closed pipe (not an error), 1 for another failed write.
+fn print(lines: &[String], err: &[String]) -> Result<(), u8> {
     for line in err {
         eprintln!("{line}");
     }
     let mut out = std::io::stdout().lock();
-    for line in lines {
-        if writeln!(out, "{line}").is_err() {
-            return false;
+    let written = lines
+        .iter()
+        .try_for_each(|line| writeln!(out, "{line}"))
+        .and_then(|()| out.flush());
+    match written {
+        Ok(()) => Ok(()),
+        Err(e) if e.kind() == std::io::ErrorKind::BrokenPipe => Err(0),
+        Err(e) => {
+            eprintln!("closeout: cannot write the output: {e}");
+            Err(1)
         }
     }
-    out.flush().is_ok()
 }
 
 /// `status --follow`: one loop over one channel of hints; the loop owns all state.
@@ -266,8 +273,10 @@ fn follow_status(
         match hint {
             None | Some(Hint::Stop) => {
                 let text = output.last_state(&snapshot);
-                print(&[text], &[]);
-                let code = u8::from(exit_code && !snapshot.ready_to_close);
+                let code = match print(&[text], &[]) {
+                    Ok(()) => u8::from(exit_code && !snapshot.ready_to_close),
+                    Err(code) => code,
+                };
                 return Done {
                     text: String::new(),
                     code,
@@ -305,10 +314,10 @@ fn follow_status(
             }
         }
         let lines = output.update(&events, &snapshot);
-        if !print(&lines.out, &lines.err) {
+        if let Err(code) = print(&lines.out, &lines.err) {
             return Done {
                 text: String::new(),
-                code: 0,
+                code,
             };
         }
         if until_ready && snapshot.ready_to_close {
