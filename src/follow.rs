@@ -161,6 +161,10 @@ pub enum FollowError {
     Utf16 { path: String, why: &'static str },
     #[error("{path}: cannot read the responses file: {error}")]
     Io { path: String, error: String },
+    #[error(
+        "{path}: the responses file is not a regular file (a folder, a pipe or a device): give a CSV file in source.file"
+    )]
+    NotAFile { path: String },
 }
 
 /// What is known of the file being read.
@@ -244,6 +248,15 @@ impl Follower {
     /// Look at the file and say what happened since the last poll.
     pub fn poll(&mut self) -> Result<Change, FollowError> {
         self.caught_up = true;
+        // Never open a FIFO or a device: opening a FIFO would block until a writer came.
+        match std::fs::metadata(&self.path) {
+            Ok(meta) if !meta.is_file() => {
+                return Err(FollowError::NotAFile {
+                    path: self.path.display().to_string(),
+                });
+            }
+            _ => {}
+        }
         let file = match File::open(&self.path) {
             Ok(file) => file,
             Err(e) if e.kind() == ErrorKind::NotFound => {
@@ -491,6 +504,13 @@ mod tests {
         }
         assert_eq!(looks_like_utf16(b"a,b\n\0\0\0\0\0\0\0\0\0\x001,2\n"), None);
         assert_eq!(looks_like_utf16(b"\0\0\0\0\0a,b\n1,2\n"), None);
+    }
+
+    #[test]
+    fn a_folder_is_not_followed() {
+        let dir = tempfile::tempdir().unwrap();
+        let err = Follower::new(dir.path(), b',').poll().unwrap_err();
+        assert!(matches!(err, FollowError::NotAFile { .. }), "{err}");
     }
 
     #[test]
