@@ -2,15 +2,23 @@
 //! per quota cell, and say how precise each one is under several probability bounds
 //! and when collection can close.
 //!
-//! The modules follow the data flow: `study` reads and checks the study file; `rows`
+//! The modules follow the data flow: `study` reads and checks the study file;
+//! `follow` hands out the complete records of a growing file exactly once, and `live`
+//! counts them into a tally that always equals a fresh read; `hints` turns file
+//! events and a safety tick into one channel; `rows`
 //! turns a CSV record into a response or a rejection; `tally` keeps the running sums
 //! per cell and measure; `batch` reads a whole file once; `bounds` computes margins
 //! and sizes from counts; `assess` turns a study and its tally into a `Snapshot`;
-//! `report` writes a snapshot (or a margin or size question) as text, JSON or CSV.
+//! `report` writes a snapshot (or a margin or size question) as text, JSON or CSV;
+//! `event_log` appends what changed, and when, to the study's event log.
 
 pub mod assess;
 pub mod batch;
 pub mod bounds;
+pub mod event_log;
+pub mod follow;
+pub mod hints;
+pub mod live;
 pub mod report;
 pub mod rows;
 pub mod study;

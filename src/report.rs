@@ -5,8 +5,10 @@ use serde_json::{Value, json};
 
 use crate::bounds::{BoundRow, Interval, Query, RequiredSize, SizeQuery, Unavailable};
 
+mod follow;
 mod status;
 
+pub use follow::{FollowOutput, Lines, summary};
 pub use status::{neutralise, status_csv, status_json, status_text, verdict, when};
 
 /// The cautions in one line, for compact outputs.

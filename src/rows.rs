@@ -106,6 +106,9 @@ pub enum Reason {
     NegativeWeight(String),
     /// The time is not an RFC 3339 timestamp (the raw trimmed value).
     BadTime(String),
+    /// The record is longer than a follower holds (its size in bytes); usually a
+    /// quote that was opened and never closed.
+    TooLong { bytes: u64 },
 }
 
 impl Reason {
@@ -117,6 +120,7 @@ impl Reason {
             Reason::BadWeight(_) => "bad_weight",
             Reason::NegativeWeight(_) => "negative_weight",
             Reason::BadTime(_) => "bad_time",
+            Reason::TooLong { .. } => "too_long",
         }
     }
 }
@@ -194,6 +198,10 @@ impl fmt::Display for Reason {
                 f,
                 "time '{}' is not an RFC 3339 timestamp: write times with an offset, such as 2026-05-01T09:30:00Z",
                 quote_safely(raw)
+            ),
+            Reason::TooLong { bytes } => write!(
+                f,
+                "the record is {bytes} bytes long, more than a record may be: look for a quote that is opened and never closed"
             ),
         }
     }

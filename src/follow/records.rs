@@ -1,0 +1,265 @@
+//! The push reader under the follower: bytes in, complete records out, with the line
+//! each record starts on. It is never told that the input has ended, so a record is
+//! only ever complete when its line end has been seen outside quotes.
+//!
+//! Line numbers follow `tally::tally_csv` exactly: the header is line 1; CR and LF
+//! bytes between records are skipped (blank lines) and every LF consumed is counted;
+//! a record's line is the line its first byte is on. On top of that, NUL bytes
+//! between records are skipped too (the hole a writer leaves after a truncating
+//! rotation), and a UTF-8 byte-order mark at the very start is dropped.
+
+use csv::ByteRecord;
+
+use super::Warning;
+
+/// A complete record, with where it starts.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub struct Record {
+    /// The line the record starts on (the header is line 1).
+    pub line: u64,
+    /// The byte offset in the file where the record starts.
+    pub offset: u64,
+    /// The fields. Empty when the record was too long to hold (see `too_long`).
+    pub fields: ByteRecord,
+    /// `Some(bytes)` when the record was longer than the limit: its fields were
+    /// dropped while it was read, and only its size is known.
+    pub too_long: Option<u64>,
+}
+
+const BOM: &[u8] = b"\xef\xbb\xbf";
+
+/// The state of reading one file from its first byte.
+#[derive(Debug)]
+pub(crate) struct Reader {
+    csv: csv_core::Reader,
+    /// Bytes of the file taken so far: every byte before this offset has been seen.
+    taken: u64,
+    /// The line of the next byte.
+    line: u64,
+    /// Whether the start of the file has been checked for a byte-order mark.
+    bom_checked: bool,
+    /// A record has begun and not yet ended.
+    in_record: bool,
+    start_line: u64,
+    start_offset: u64,
+    /// Input bytes of the record being read so far.
+    pending: u64,
+    limit: u64,
+    /// The record being read is past the limit: its output is being dropped.
+    dropping: bool,
+    fields: Vec<u8>,
+    ends: Vec<usize>,
+    out: usize,
+    end: usize,
+    header: Option<ByteRecord>,
+    /// A run of NUL bytes between records: where it began and how long it is so far.
+    nul_run: Option<(u64, u64)>,
+}
+
+impl Reader {
+    pub(crate) fn new(delimiter: u8, limit: u64) -> Reader {
+        Reader {
+            csv: csv_core::ReaderBuilder::new().delimiter(delimiter).build(),
+            taken: 0,
+            line: 1,
+            bom_checked: false,
+            in_record: false,
+            start_line: 1,
+            start_offset: 0,
+            pending: 0,
+            limit,
+            dropping: false,
+            fields: vec![0; 1024],
+            ends: vec![0; 64],
+            out: 0,
+            end: 0,
+            header: None,
+            nul_run: None,
+        }
+    }
+
+    /// Bytes of the file taken so far.
+    pub(crate) fn taken(&self) -> u64 {
+        self.taken
+    }
+
+    /// The header, once its record is complete.
+    pub(crate) fn header(&self) -> Option<&ByteRecord> {
+        self.header.as_ref()
+    }
+
+    /// Take the bytes that follow those already taken. Complete records after the
+    /// header go to `records`; a record equal to the header is skipped and noted.
+    /// Returns how many bytes were taken: all of them, except at the very start of
+    /// the file while fewer bytes than a byte-order mark have arrived and they could
+    /// still be one (then none).
+    pub(crate) fn feed(
+        &mut self,
+        mut data: &[u8],
+        records: &mut Vec<Record>,
+        warnings: &mut Vec<Warning>,
+    ) -> usize {
+        let given = data.len();
+        if !self.bom_checked {
+            if data.len() < BOM.len() && BOM.starts_with(data) {
+                return 0;
+            }
+            self.bom_checked = true;
+            if data.starts_with(BOM) {
+                data = &data[BOM.len()..];
+                self.taken += BOM.len() as u64;
+            }
+        }
+        while !data.is_empty() {
+            if !self.in_record {
+                let skip = data
+                    .iter()
+                    .take_while(|&&b| matches!(b, b'\r' | b'\n' | 0))
+                    .count();
+                for &b in &data[..skip] {
+                    if b == 0 {
+                        let offset = self.taken;
+                        let run = self.nul_run.get_or_insert((offset, 0));
+                        run.1 += 1;
+                    } else {
+                        self.end_nul_run(warnings);
+                        if b == b'\n' {
+                            self.line += 1;
+                        }
+                    }
+                    self.taken += 1;
+                }
+                data = &data[skip..];
+                if data.is_empty() {
+                    break;
+                }
+                self.end_nul_run(warnings);
+                self.in_record = true;
+                self.start_line = self.line;
+                self.start_offset = self.taken;
+                self.pending = 0;
+                self.dropping = false;
+                self.out = 0;
+                self.end = 0;
+            }
+            let (result, nin, nout, nend) = self.csv.read_record(
+                data,
+                &mut self.fields[self.out..],
+                &mut self.ends[self.end..],
+            );
+            let consumed = data.get(..nin).unwrap_or_default();
+            self.line += consumed.iter().filter(|&&b| b == b'\n').count() as u64;
+            self.taken += nin as u64;
+            self.pending += nin as u64;
+            data = data.get(nin..).unwrap_or_default();
+            self.out += nout;
+            self.end += nend;
+            if self.pending > self.limit && !self.dropping {
+                self.dropping = true;
+                warnings.push(Warning::LongRecord {
+                    offset: self.start_offset,
+                    line: self.start_line,
+                    limit: self.limit,
+                });
+            }
+            use csv_core::ReadRecordResult as Read;
+            match result {
+                Read::InputEmpty | Read::End => {}
+                Read::OutputFull if self.dropping => self.out = 0,
+                Read::OutputEndsFull if self.dropping => self.end = 0,
+                Read::OutputFull => {
+                    let len = self.fields.len();
+                    self.fields.resize(len * 2, 0);
+                }
+                Read::OutputEndsFull => {
+                    let len = self.ends.len();
+                    self.ends.resize(len * 2, 0);
+                }
+                Read::Record => self.finish_record(records, warnings),
+            }
+        }
+        given - data.len()
+    }
+
+    fn end_nul_run(&mut self, warnings: &mut Vec<Warning>) {
+        if let Some((offset, count)) = self.nul_run.take() {
+            warnings.push(Warning::NulBytes { offset, count });
+        }
+    }
+
+    fn finish_record(&mut self, records: &mut Vec<Record>, warnings: &mut Vec<Warning>) {
+        self.in_record = false;
+        let mut fields = ByteRecord::new();
+        let too_long = if self.dropping {
+            Some(self.pending)
+        } else {
+            let mut from = 0;
+            for &to in self.ends.get(..self.end).unwrap_or_default() {
+                fields.push_field(self.fields.get(from..to).unwrap_or_default());
+                from = to;
+            }
+            None
+        };
+        self.dropping = false;
+        self.out = 0;
+        self.end = 0;
+        let Some(header) = &self.header else {
+            self.header = Some(fields);
+            return;
+        };
+        if too_long.is_none() && same_as_header(&fields, header) {
+            warnings.push(Warning::RepeatedHeader {
+                line: self.start_line,
+            });
+            return;
+        }
+        records.push(Record {
+            line: self.start_line,
+            offset: self.start_offset,
+            fields,
+            too_long,
+        });
+    }
+}
+
+/// Whether a record repeats the header (a second export appended to the first,
+/// perhaps with its own byte-order mark).
+fn same_as_header(record: &ByteRecord, header: &ByteRecord) -> bool {
+    record.len() == header.len()
+        && record
+            .iter()
+            .enumerate()
+            .zip(header)
+            .all(|((i, mine), theirs)| {
+                let mine = if i == 0 {
+                    mine.strip_prefix(BOM).unwrap_or(mine)
+                } else {
+                    mine
+                };
+                mine == theirs
+            })
+}
+
+/// Why the first bytes of a file look like UTF-16 text, if they do: a UTF-16
+/// byte-order mark, or NUL bytes standing alone between other bytes (as every other
+/// byte of UTF-16 text in a Latin script is) after any leading run of NULs.
+pub(crate) fn looks_like_utf16(first: &[u8]) -> Option<&'static str> {
+    if first.starts_with(b"\xff\xfe") || first.starts_with(b"\xfe\xff") {
+        return Some("it begins with a UTF-16 byte-order mark");
+    }
+    let start = first.iter().take_while(|&&b| b == 0).count();
+    let window = first.get(start..).unwrap_or_default();
+    let window = window.get(..64).unwrap_or(window);
+    let lone = (0..window.len())
+        .filter(|&i| {
+            window[i] == 0
+                && (i == 0 || window[i - 1] != 0)
+                && window.get(i + 1).is_none_or(|&b| b != 0)
+        })
+        .count();
+    if window.len() >= 4 && lone >= 2 && lone * 4 >= window.len() {
+        Some("every other byte of its first line is a NUL byte")
+    } else {
+        None
+    }
+}
