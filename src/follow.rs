@@ -42,10 +42,10 @@ use std::path::{Path, PathBuf};
 
 use csv::ByteRecord;
 
-mod records;
+pub(crate) mod records;
 
 pub use records::Record;
-use records::{Reader, looks_like_utf16};
+pub(crate) use records::{Reader, looks_like_utf16};
 
 /// The size of each fingerprint: the file's first bytes, and the bytes just before
 /// the read offset.

@@ -20,7 +20,7 @@
 
 use std::collections::{BTreeMap, BTreeSet, HashSet};
 use std::fmt;
-use std::io::{BufRead, Read};
+use std::io::Read;
 use std::sync::atomic::{AtomicU64, Ordering};
 
 use jiff::Timestamp;
@@ -724,159 +724,88 @@ pub enum TallyError<E> {
 
 /// Tally a whole CSV (header first) in one pass, for `closeout status`.
 ///
+/// The records come from the same push reader the follower uses
+/// ([`crate::follow`]), so a one-shot read and a follower that has caught up count
+/// exactly the same records, with the same line numbers: a UTF-8 byte-order mark at
+/// the start is dropped; records may end in LF or CRLF; quoted fields may hold the
+/// delimiter and line breaks; blank lines and NUL runs between records are skipped; a
+/// record identical to the header (two exports concatenated) is skipped; a record
+/// longer than [`crate::follow::RECORD_LIMIT`] is rejected as too long. The one
+/// difference is the end: here the input is finished, so a last record without a
+/// line end counts, where a follower holds it back until its line end is written.
 /// `layout_for` resolves the study's columns against the header (the names as
-/// written, after a UTF-8 byte-order mark at the start of the file is removed).
-/// Records may end in LF or CRLF; quoted fields may hold the delimiter and line
-/// breaks; blank lines are skipped. A record's line is the line its first field
-/// starts on, so a quoted line break makes the next record's line jump. Returns the
-/// header and the tally.
+/// written). Returns the header and the tally.
 pub fn tally_csv<R: Read, E>(
     layout_for: impl FnOnce(&[&str]) -> Result<Layout, E>,
-    reader: R,
+    mut reader: R,
     delimiter: u8,
 ) -> Result<(Vec<String>, Tally), TallyError<E>> {
-    let io = |e: std::io::Error| TallyError::Io(e.to_string());
-    let mut records = Records::new(without_bom(reader).map_err(io)?, delimiter);
-    let mut record = csv::ByteRecord::new();
-    if records.next(&mut record).map_err(io)?.is_none() {
-        return Err(TallyError::NoHeader);
-    }
-    let header = record
-        .iter()
-        .enumerate()
-        .map(|(i, field)| {
-            std::str::from_utf8(field)
-                .map(str::to_string)
-                .map_err(|_| TallyError::HeaderNotUtf8 { column: i + 1 })
-        })
-        .collect::<Result<Vec<String>, _>>()?;
-    let names: Vec<&str> = header.iter().map(String::as_str).collect();
-    let layout = layout_for(&names).map_err(TallyError::Layout)?;
-    let mut tally = Tally::new(layout.measures.len());
-    while let Some(line) = records.next(&mut record).map_err(io)? {
-        tally.add_record(&layout, &record, line);
-    }
-    Ok((header, tally))
-}
-
-/// The reader with a UTF-8 byte-order mark at its start removed. (The csv parser
-/// removes one only if its first read delivers all three bytes.)
-fn without_bom<R: Read>(mut reader: R) -> std::io::Result<impl Read> {
-    let mut start = [0u8; 3];
-    let mut got = 0;
-    while got < start.len() {
-        match reader.read(&mut start[got..]) {
-            Ok(0) => break,
-            Ok(k) => got += k,
-            Err(e) if e.kind() == std::io::ErrorKind::Interrupted => {}
-            Err(e) => return Err(e),
-        }
-    }
-    let skip = if start[..got] == *b"\xef\xbb\xbf" {
-        3
-    } else {
-        0
-    };
-    let prefix = start.get(skip..got).unwrap_or_default().to_vec();
-    Ok(std::io::Cursor::new(prefix).chain(reader))
-}
-
-/// CSV records with the line each one starts on.
-///
-/// The csv crate's `Position::line` is where the reader stood *before* it skipped
-/// blank lines and the LF of a CRLF, so it names the wrong line after a blank line
-/// and for every CRLF record but the first. Here blank-line bytes (CR and LF) between
-/// records are skipped before the record is read — as the parser would skip them —
-/// and every LF consumed is counted. (A file whose lines end in CR alone is read
-/// correctly but numbered as one line.)
-struct Records<R> {
-    input: std::io::BufReader<R>,
-    parser: csv_core::Reader,
-    /// The line of the next unread byte.
-    line: u64,
-    fields: Vec<u8>,
-    ends: Vec<usize>,
-}
-
-impl<R: Read> Records<R> {
-    fn new(reader: R, delimiter: u8) -> Records<R> {
-        Records {
-            input: std::io::BufReader::new(reader),
-            parser: csv_core::ReaderBuilder::new().delimiter(delimiter).build(),
-            line: 1,
-            fields: vec![0; 1024],
-            ends: vec![0; 64],
-        }
-    }
-
-    /// Read the next record into `record`: the line it starts on, or `None` at the end.
-    fn next(&mut self, record: &mut csv::ByteRecord) -> std::io::Result<Option<u64>> {
-        use csv_core::ReadRecordResult as Read;
-        let Records {
-            input,
-            parser,
-            line,
-            fields,
-            ends,
-        } = self;
-        loop {
-            let buffer = fill(input)?;
-            if buffer.is_empty() {
-                return Ok(None);
+    let mut parser = crate::follow::Reader::new(delimiter, crate::follow::RECORD_LIMIT);
+    let mut layout_for = Some(layout_for);
+    let mut state: Option<(Vec<String>, Layout, Tally)> = None;
+    let mut records = Vec::new();
+    let mut warnings = Vec::new();
+    let mut buffer = vec![0u8; 1 << 16];
+    let mut carry: Vec<u8> = Vec::new();
+    let mut head: Vec<u8> = Vec::new();
+    let mut ended = false;
+    while !ended {
+        let got = loop {
+            match reader.read(&mut buffer) {
+                Ok(k) => break k,
+                Err(e) if e.kind() == std::io::ErrorKind::Interrupted => {}
+                Err(e) => return Err(TallyError::Io(e.to_string())),
             }
-            let blank = buffer
+        };
+        carry.extend_from_slice(buffer.get(..got).unwrap_or_default());
+        if head.len() < 64 {
+            let room = 64 - head.len();
+            head.extend_from_slice(carry.get(..room.min(carry.len())).unwrap_or_default());
+            if let Some(why) = crate::follow::looks_like_utf16(&head) {
+                return Err(TallyError::Io(format!(
+                    "the file looks like {why}: save it as UTF-8"
+                )));
+            }
+        }
+        let took = parser.feed(&carry, &mut records, &mut warnings);
+        carry.drain(..took);
+        if got == 0 {
+            parser.finish(&mut records, &mut warnings);
+            ended = true;
+        }
+        if state.is_none()
+            && let Some(header) = parser.header()
+            && let Some(resolve) = layout_for.take()
+        {
+            let names = header
                 .iter()
-                .take_while(|&&b| b == b'\r' || b == b'\n')
-                .count();
-            let rest = buffer.len() - blank;
-            *line += newlines(&buffer[..blank]);
-            input.consume(blank);
-            if rest > 0 {
-                break;
+                .enumerate()
+                .map(|(i, field)| {
+                    std::str::from_utf8(field)
+                        .map(str::to_string)
+                        .map_err(|_| TallyError::HeaderNotUtf8 { column: i + 1 })
+                })
+                .collect::<Result<Vec<String>, _>>()?;
+            let refs: Vec<&str> = names.iter().map(String::as_str).collect();
+            let layout = resolve(&refs).map_err(TallyError::Layout)?;
+            let tally = Tally::new(layout.measures.len());
+            state = Some((names, layout, tally));
+        }
+        if let Some((_, layout, tally)) = state.as_mut() {
+            for record in records.drain(..) {
+                match record.too_long {
+                    Some(bytes) => tally.reject(Rejection {
+                        line: record.line,
+                        reason: rows::Reason::TooLong { bytes },
+                    }),
+                    None => tally.add_record(layout, &record.fields, record.line),
+                }
             }
         }
-        let start = *line;
-        let (mut out, mut end) = (0, 0);
-        loop {
-            let buffer = fill(input)?;
-            let (result, nin, nout, nend) =
-                parser.read_record(buffer, &mut fields[out..], &mut ends[end..]);
-            *line += newlines(buffer.get(..nin).unwrap_or_default());
-            input.consume(nin);
-            out += nout;
-            end += nend;
-            match result {
-                Read::InputEmpty => {}
-                Read::OutputFull => fields.resize(fields.len() * 2, 0),
-                Read::OutputEndsFull => ends.resize(ends.len() * 2, 0),
-                Read::Record => break,
-                Read::End => return Ok(None),
-            }
-        }
-        record.clear();
-        let mut from = 0;
-        for &to in ends.get(..end).unwrap_or_default() {
-            record.push_field(fields.get(from..to).unwrap_or_default());
-            from = to;
-        }
-        Ok(Some(start))
+        warnings.clear();
     }
-}
-
-/// The buffered input, retrying reads that were interrupted. Empty at the end.
-fn fill<R: Read>(input: &mut std::io::BufReader<R>) -> std::io::Result<&[u8]> {
-    loop {
-        match input.fill_buf() {
-            Err(e) if e.kind() == std::io::ErrorKind::Interrupted => {}
-            Err(e) => return Err(e),
-            Ok(_) => break,
-        }
-    }
-    input.fill_buf()
-}
-
-fn newlines(bytes: &[u8]) -> u64 {
-    bytes.iter().filter(|&&b| b == b'\n').count() as u64
+    let (header, _, tally) = state.ok_or(TallyError::NoHeader)?;
+    Ok((header, tally))
 }
 
 #[cfg(test)]

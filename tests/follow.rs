@@ -858,3 +858,42 @@ fn records_repeating_the_header_are_skipped_and_counted() {
         one_pass(&f.study, &[FIRST, MORE].concat()).rejected
     );
 }
+
+/// The one-shot read and the follower share one record reader, so the awkward bytes
+/// the follower handles — a second header (two exports concatenated), a NUL run after
+/// a truncating rotation, a record over the size limit — give the same tally either
+/// way. The only difference is the end of input: a finished file's last record
+/// without a line end counts in the one-shot read, and the follower holds it back
+/// until its line end arrives.
+#[test]
+fn the_one_shot_read_and_the_follower_agree_on_awkward_bytes() {
+    let f = fixture();
+    let mut bytes = FIRST.to_vec();
+    bytes.extend_from_slice(b"id,region,q1,t\n");
+    bytes.extend_from_slice(b"\0\0\0\0\0\0");
+    bytes.extend_from_slice(b"h,north,y,2026-05-01T11:00:00Z\n");
+    bytes.extend_from_slice(b"i,north,\"");
+    bytes.extend(std::iter::repeat_n(
+        b'x',
+        (closeout::follow::RECORD_LIMIT + 10) as usize,
+    ));
+    bytes.extend_from_slice(b"\",2026-05-01T11:05:00Z\n");
+    bytes.extend_from_slice(b"j,south,n,2026-05-01T11:10:00Z");
+    std::fs::write(&f.csv, &bytes).unwrap();
+    let mut live = Live::new(f.study.clone());
+    for _ in 0..100 {
+        poll(&mut live);
+        if live.caught_up() {
+            break;
+        }
+    }
+    let one_shot = fresh(&f.study);
+    // The unterminated last record is the one difference.
+    assert_eq!(one_shot.rows_read, live.tally().rows_read + 1);
+    append(&f.csv, b"\n");
+    poll(&mut live);
+    assert_eq!(live.tally(), &fresh(&f.study));
+    assert_eq!(one_shot, fresh(&f.study));
+    assert_eq!(one_shot.rejected, 3, "bad time, field count, too long");
+    assert_eq!(live.repeated_headers(), 1);
+}

@@ -181,6 +181,36 @@ impl Reader {
         given - data.len()
     }
 
+    /// The input has ended (a one-shot read of a finished file): a last record
+    /// without a line end is complete after all. Nothing happens if no record is open.
+    pub(crate) fn finish(&mut self, records: &mut Vec<Record>, warnings: &mut Vec<Warning>) {
+        self.end_nul_run(warnings);
+        while self.in_record {
+            let (result, _, nout, nend) = self.csv.read_record(
+                &[],
+                &mut self.fields[self.out..],
+                &mut self.ends[self.end..],
+            );
+            self.out += nout;
+            self.end += nend;
+            use csv_core::ReadRecordResult as Read;
+            match result {
+                Read::OutputFull if self.dropping => self.out = 0,
+                Read::OutputEndsFull if self.dropping => self.end = 0,
+                Read::OutputFull => {
+                    let len = self.fields.len();
+                    self.fields.resize(len * 2, 0);
+                }
+                Read::OutputEndsFull => {
+                    let len = self.ends.len();
+                    self.ends.resize(len * 2, 0);
+                }
+                Read::Record => self.finish_record(records, warnings),
+                Read::InputEmpty | Read::End => self.in_record = false,
+            }
+        }
+    }
+
     fn end_nul_run(&mut self, warnings: &mut Vec<Warning>) {
         if let Some((offset, count)) = self.nul_run.take() {
             warnings.push(Warning::NulBytes { offset, count });
