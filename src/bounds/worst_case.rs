@@ -20,71 +20,80 @@ use super::special::{ln_binom_lower, ln_binom_pmf, ln_binom_upper};
 /// which is never smaller and so keeps the worst-case guarantee.
 pub const EXACT_LIMIT: u64 = 200_000;
 
-/// The candidate value for pivot `k` at margin `eps` (see the module note).
-fn candidate(n: u64, k: u64, eps: f64) -> f64 {
-    let nf = n as f64;
-    let p = k as f64 / nf + eps;
-    if p > 1.0 {
-        return 0.0;
-    }
-    let q = (n - k) as f64 / nf - eps;
-    let below = ln_binom_lower(k, n, p, q).exp();
-    let cut = (k as f64 + 2.0 * nf * eps).floor() as u64 + 1;
-    let above = if cut > n {
-        0.0
-    } else {
-        ln_binom_upper(cut, n, p, q).exp()
-    };
-    below + above
+/// Pivot `k` at margin `eps` (see the module note): the piece's left end
+/// `p = k/n + ε`, and the two tails `X ≤ k` and `X ≥ cut`, `cut` the first count past
+/// `k + 2nε` (`None` when no count is).
+struct Pivot {
+    n: u64,
+    k: u64,
+    p: f64,
+    q: f64,
+    cut: Option<u64>,
 }
 
-/// A cheap upper bound on `candidate` (Chernoff's bound on each tail).
-fn candidate_bound(n: u64, k: u64, eps: f64) -> f64 {
-    let nf = n as f64;
-    let p = k as f64 / nf + eps;
-    if p > 1.0 {
-        return 0.0;
-    }
-    let below = (-nf * kl(k as f64 / nf, p)).exp();
-    let cut = (k as f64 + 2.0 * nf * eps).floor() as u64 + 1;
-    let above = if cut > n {
-        0.0
-    } else {
-        (-nf * kl(cut as f64 / nf, p)).exp()
-    };
-    below + above
-}
-
-/// A tighter upper bound on `candidate`: each tail is at most its first term over
-/// `1 − r`, `r` the ratio of its first two terms (the ratios keep shrinking outward).
-fn candidate_refined(n: u64, k: u64, eps: f64) -> f64 {
-    let nf = n as f64;
-    let p = k as f64 / nf + eps;
-    if p > 1.0 {
-        return 0.0;
-    }
-    let q = (n - k) as f64 / nf - eps;
-    let kf = k as f64;
-    // Lower tail P(X ≤ k): the ratio from k down to k − 1 is kq / ((n − k + 1)p).
-    let r_low = kf * q / ((nf - kf + 1.0) * p);
-    let below = if r_low < 1.0 {
-        ln_binom_pmf(k, n, p, q).exp() / (1.0 - r_low)
-    } else {
-        1.0
-    };
-    let cut = (kf + 2.0 * nf * eps).floor() as u64 + 1;
-    let above = if cut > n {
-        0.0
-    } else {
-        let cf = cut as f64;
-        let r_up = (nf - cf) * p / ((cf + 1.0) * q);
-        if r_up < 1.0 {
-            ln_binom_pmf(cut, n, p, q).exp() / (1.0 - r_up)
-        } else {
-            1.0
+impl Pivot {
+    /// `None` when the piece starts past p = 1 (its value is then 0).
+    fn new(n: u64, k: u64, eps: f64) -> Option<Pivot> {
+        let nf = n as f64;
+        let p = k as f64 / nf + eps;
+        if p > 1.0 {
+            return None;
         }
-    };
-    below + above
+        let q = (n - k) as f64 / nf - eps;
+        let cut = (k as f64 + 2.0 * nf * eps).floor() as u64 + 1;
+        Some(Pivot {
+            n,
+            k,
+            p,
+            q,
+            cut: (cut <= n).then_some(cut),
+        })
+    }
+
+    /// The candidate value `P_p(X ≤ k) + P_p(X ≥ cut)`.
+    fn value(&self) -> f64 {
+        let (n, p, q) = (self.n, self.p, self.q);
+        let below = ln_binom_lower(self.k, n, p, q).exp();
+        below + self.cut.map_or(0.0, |c| ln_binom_upper(c, n, p, q).exp())
+    }
+
+    /// A cheap upper bound on the value (Chernoff's bound on each tail).
+    fn chernoff_bound(&self) -> f64 {
+        let nf = self.n as f64;
+        let tail = |count: u64| (-nf * kl(count as f64 / nf, self.p)).exp();
+        tail(self.k) + self.cut.map_or(0.0, tail)
+    }
+
+    /// A tighter upper bound on the value: each tail is at most its first term over
+    /// `1 − r`, `r` the ratio of its first two terms (the ratios keep shrinking outward).
+    fn geometric_bound(&self) -> f64 {
+        let (n, p, q) = (self.n, self.p, self.q);
+        let (nf, kf) = (n as f64, self.k as f64);
+        let first_over = |count: u64, r: f64| {
+            if r < 1.0 {
+                ln_binom_pmf(count, n, p, q).exp() / (1.0 - r)
+            } else {
+                1.0
+            }
+        };
+        // Lower tail P(X ≤ k): the ratio from k down to k − 1 is kq / ((n − k + 1)p).
+        let below = first_over(self.k, kf * q / ((nf - kf + 1.0) * p));
+        let above = self.cut.map_or(0.0, |c| {
+            let cf = c as f64;
+            first_over(c, (nf - cf) * p / ((cf + 1.0) * q))
+        });
+        below + above
+    }
+
+    /// Whether the value exceeds δ, trying the cheap bounds first.
+    fn exceeds(&self, delta: f64) -> bool {
+        self.chernoff_bound() > delta && self.geometric_bound() > delta && self.value() > delta
+    }
+}
+
+/// The candidate value for pivot `k` at margin `eps`.
+fn candidate(n: u64, k: u64, eps: f64) -> f64 {
+    Pivot::new(n, k, eps).map_or(0.0, |pivot| pivot.value())
 }
 
 /// The first pivot whose candidate value exceeds δ at `eps`, searching outward from
@@ -93,11 +102,7 @@ fn candidate_refined(n: u64, k: u64, eps: f64) -> f64 {
 fn violator(n: u64, eps: f64, delta: f64) -> Option<u64> {
     let nf = n as f64;
     let centre = (nf * (0.5 - eps)).round().clamp(0.0, nf) as u64;
-    let check = |k: u64| {
-        candidate_bound(n, k, eps) > delta
-            && candidate_refined(n, k, eps) > delta
-            && candidate(n, k, eps) > delta
-    };
+    let check = |k: u64| Pivot::new(n, k, eps).is_some_and(|pivot| pivot.exceeds(delta));
     for step in 0..=n {
         let right = centre + step;
         if right <= n && check(right) {
