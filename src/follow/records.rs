@@ -162,21 +162,7 @@ impl Reader {
                     limit: self.limit,
                 });
             }
-            use csv_core::ReadRecordResult as Read;
-            match result {
-                Read::InputEmpty | Read::End => {}
-                Read::OutputFull if self.dropping => self.out = 0,
-                Read::OutputEndsFull if self.dropping => self.end = 0,
-                Read::OutputFull => {
-                    let len = self.fields.len();
-                    self.fields.resize(len * 2, 0);
-                }
-                Read::OutputEndsFull => {
-                    let len = self.ends.len();
-                    self.ends.resize(len * 2, 0);
-                }
-                Read::Record => self.finish_record(records, warnings),
-            }
+            self.after_read(result, records, warnings);
         }
         given - data.len()
     }
@@ -193,21 +179,39 @@ impl Reader {
             );
             self.out += nout;
             self.end += nend;
-            use csv_core::ReadRecordResult as Read;
-            match result {
-                Read::OutputFull if self.dropping => self.out = 0,
-                Read::OutputEndsFull if self.dropping => self.end = 0,
-                Read::OutputFull => {
-                    let len = self.fields.len();
-                    self.fields.resize(len * 2, 0);
-                }
-                Read::OutputEndsFull => {
-                    let len = self.ends.len();
-                    self.ends.resize(len * 2, 0);
-                }
-                Read::Record => self.finish_record(records, warnings),
-                Read::InputEmpty | Read::End => self.in_record = false,
+            if matches!(
+                result,
+                csv_core::ReadRecordResult::InputEmpty | csv_core::ReadRecordResult::End
+            ) {
+                self.in_record = false;
+            } else {
+                self.after_read(result, records, warnings);
             }
+        }
+    }
+
+    /// What to do after one call of the csv parser: grow the output buffers (or, for
+    /// a record past the limit, drop what it wrote), or complete the record.
+    fn after_read(
+        &mut self,
+        result: csv_core::ReadRecordResult,
+        records: &mut Vec<Record>,
+        warnings: &mut Vec<Warning>,
+    ) {
+        use csv_core::ReadRecordResult as Read;
+        match result {
+            Read::InputEmpty | Read::End => {}
+            Read::OutputFull if self.dropping => self.out = 0,
+            Read::OutputEndsFull if self.dropping => self.end = 0,
+            Read::OutputFull => {
+                let len = self.fields.len();
+                self.fields.resize(len * 2, 0);
+            }
+            Read::OutputEndsFull => {
+                let len = self.ends.len();
+                self.ends.resize(len * 2, 0);
+            }
+            Read::Record => self.finish_record(records, warnings),
         }
     }
 
