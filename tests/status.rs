@@ -246,6 +246,21 @@ fn the_verdict_follows_its_rules() {
             assert_eq!(m.margin, decided.margin, "{} {}", c.label, m.name);
         }
     }
+    // The ETA is the rate carried forward: as_of + needed / rate hours (to the second).
+    for c in s.cells.iter().filter(|c| c.status != assess::Status::Met) {
+        if let (Some(eta), Some(needed), Some(rate)) = (c.eta, c.needed, c.rate_per_hour) {
+            let hours = eta.duration_since(s.as_of).as_secs_f64() / 3600.0;
+            assert!(
+                (hours - needed as f64 / rate).abs() < 1.0 / 3600.0,
+                "{}",
+                c.label
+            );
+        }
+    }
+    assert!(
+        s.cells.iter().any(|c| c.eta.is_some()),
+        "the sample has a cell with an ETA"
+    );
     let planned_met = s
         .cells
         .iter()
