@@ -10,11 +10,13 @@
 //! per cell and measure; `batch` reads a whole file once; `bounds` computes margins
 //! and sizes from counts; `assess` turns a study and its tally into a `Snapshot`;
 //! `report` writes a snapshot (or a margin or size question) as text, JSON or CSV;
-//! `event_log` appends what changed, and when, to the study's event log.
+//! `event_log` appends what changed, and when, to the study's event log; `clock` is
+//! the injected "now" (the wall clock, a fixed moment, or the demo's simulated time).
 
 pub mod assess;
 pub mod batch;
 pub mod bounds;
+pub mod clock;
 pub mod event_log;
 pub mod follow;
 pub mod hints;
