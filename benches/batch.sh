@@ -1,0 +1,60 @@
+#!/usr/bin/env bash
+# B1 (issue 7): `closeout status` on 1 M and 10 M rows, beside `wc -l` on the same
+# file in the same run. Wall time (median of RUNS runs), MB/s, rows/s, peak RSS (the
+# largest of the runs), with the id column and without it.
+#
+#   bash benches/batch.sh                 # 1 M and 10 M rows, 5 runs each
+#   ROWS="1000000" RUNS=3 bash benches/batch.sh
+#
+# Needs GNU time (/usr/bin/time; Debian package `time`). The files (invented data,
+# about 86 bytes a row, 24 cells, 0.1 % malformed rows and 0.1 % duplicate ids) are
+# written once under target/bench-data/ and kept there; each is read once before
+# timing so the figures are for a warm page cache.
+set -euo pipefail
+cd "$(dirname "$0")/.."
+ROWS=${ROWS:-"1000000 10000000"}
+RUNS=${RUNS:-5}
+DATA=${DATA:-target/bench-data}
+TIME=/usr/bin/time
+[ -x "$TIME" ] || { echo "needs GNU time: apt-get install time" >&2; exit 2; }
+
+cargo build --release --locked --quiet
+BIN=target/release/closeout
+# shellcheck disable=SC2086
+cargo bench --quiet --bench write_responses -- "$DATA" $ROWS >/dev/null
+
+# median of numbers on stdin
+median() { sort -g | awk '{a[NR]=$1} END {print a[int((NR+1)/2)]}'; }
+
+# time_runs CMD...: prints "median_seconds max_rss_kib"
+time_runs() {
+  local secs=() rss=()
+  for _ in $(seq "$RUNS"); do
+    local out
+    $TIME -o "$DATA/time.out" -f "%e %M" "$@" >/dev/null 2>"$DATA/stderr.out" \
+      || { echo "failed: $* ($(head -c 300 "$DATA/stderr.out"))" >&2; exit 1; }
+    out=$(tail -1 "$DATA/time.out")
+    secs+=("${out% *}")
+    rss+=("${out#* }")
+  done
+  printf '%s\n' "${secs[@]}" | median | tr '\n' ' '
+  printf '%s\n' "${rss[@]}" | sort -g | tail -1
+}
+
+printf '%-10s %-22s %8s %9s %11s %9s\n' rows what seconds "MB/s" "rows/s" "peak MiB"
+for n in $ROWS; do
+  csv="$DATA/responses-$n.csv"
+  bytes=$(stat -c %s "$csv")
+  cat "$csv" >/dev/null  # warm the page cache
+  for what in "wc -l" "status, ids" "status, no ids"; do
+    case "$what" in
+      "wc -l") read -r s k < <(time_runs wc -l "$csv") ;;
+      "status, ids") read -r s k < <(time_runs "$BIN" status "$DATA/study-$n.toml" --as-of 2026-06-01T00:00:00Z) ;;
+      "status, no ids") read -r s k < <(time_runs "$BIN" status "$DATA/study-$n-no-ids.toml" --as-of 2026-06-01T00:00:00Z) ;;
+    esac
+    awk -v n="$n" -v w="$what" -v s="$s" -v k="$k" -v b="$bytes" 'BEGIN {
+      t = (s > 0.005 ? s : 0.005);
+      printf "%-10s %-22s %8.2f %9.0f %11.0f %9.1f\n", n, w, s, b / t / 1e6, n / t, k / 1024 }'
+  done
+done
+echo "machine: $(nproc) cores, $(grep -m1 'model name' /proc/cpuinfo | cut -d: -f2 | sed 's/^ //'), $(date -u +%Y-%m-%d)"
