@@ -1,0 +1,186 @@
+//! B2 and B3 of issue 7. Run with `cargo bench --bench live` (`-- b2` or `-- b3` for
+//! one of them; `CLOSEOUT_BENCH_ROWS="1000000"` to follow one file size only).
+//!
+//! - B2 append: a followed file of 1 M (and 10 M) rows, caught up; then 1,000 rows
+//!   are appended and the clock runs from the write to the updated `Snapshot`:
+//!   `Live::poll` until caught up, then `assess`. Also shows the first read (the
+//!   dashboard's start) and its rate.
+//! - B3 verdict: `assess` of a study with 100 cells × 3 measures, every method, as the
+//!   live case sees it: before each timed call every cell gets one more response, so
+//!   every cell's n is new and nothing memoised per n helps.
+//!
+//! Medians of RUNS runs. Speed is measured here, never asserted in a test. The data
+//! are invented (see `support/responses.rs`).
+
+#![allow(clippy::unwrap_used, clippy::expect_used)]
+
+#[path = "support/responses.rs"]
+mod responses;
+
+use std::io::Write;
+use std::path::Path;
+use std::time::Instant;
+
+use closeout::assess::assess;
+use closeout::live::Live;
+use closeout::rows::Layout;
+use closeout::study::Study;
+use closeout::tally::Tally;
+
+const RUNS: usize = 15;
+
+fn median(mut xs: Vec<f64>) -> f64 {
+    xs.sort_by(f64::total_cmp);
+    xs[xs.len() / 2]
+}
+
+fn ms(seconds: f64) -> String {
+    format!("{:.2} ms", seconds * 1e3)
+}
+
+fn b2(rows: u64) {
+    let dir = Path::new("target/bench-data");
+    let (csv, _, _) = responses::write_study(dir, rows).expect("written");
+    // Follow a copy, which the appends grow.
+    let followed = dir.join(format!("followed-{rows}.csv"));
+    std::fs::copy(&csv, &followed).expect("copied");
+    let study_path = dir.join(format!("followed-{rows}.toml"));
+    std::fs::write(&study_path, responses::study_text(&followed, true)).expect("written");
+    let study = Study::load(&study_path).expect("a valid study");
+    let as_of: jiff::Timestamp = "2026-06-01T00:00:00Z".parse().unwrap();
+
+    let bytes = std::fs::metadata(&followed).unwrap().len();
+    let start = Instant::now();
+    let mut live = Live::new(study.clone());
+    let mut polls = 0;
+    loop {
+        live.poll().expect("readable");
+        polls += 1;
+        if live.caught_up() {
+            break;
+        }
+    }
+    let first = start.elapsed().as_secs_f64();
+    assert_eq!(live.tally().rows_read, rows);
+    println!(
+        "B2 {rows} rows: first read {:.2} s ({:.0} MB/s, {polls} polls)",
+        first,
+        bytes as f64 / first / 1e6
+    );
+    let _ = assess(&study, live.tally(), as_of);
+
+    let mut file = std::fs::OpenOptions::new()
+        .append(true)
+        .open(&followed)
+        .unwrap();
+    let mut block = Vec::new();
+    let mut times = Vec::new();
+    let mut poll_times = Vec::new();
+    for run in 0..RUNS as u64 {
+        block.clear();
+        responses::write_rows(&mut block, responses::SEED, rows + run * 1000, 1000).unwrap();
+        let before = live.tally().rows_read;
+        let start = Instant::now();
+        file.write_all(&block).unwrap();
+        loop {
+            live.poll().expect("readable");
+            if live.caught_up() {
+                break;
+            }
+        }
+        let polled = start.elapsed().as_secs_f64();
+        let snapshot = assess(&study, live.tally(), as_of);
+        let total = start.elapsed().as_secs_f64();
+        assert_eq!(live.tally().rows_read, before + 1000);
+        std::hint::black_box(snapshot);
+        times.push(total);
+        poll_times.push(polled);
+    }
+    println!(
+        "B2 {rows} rows: append 1,000 rows → Snapshot {} (poll {}, assess the rest), median of {RUNS}",
+        ms(median(times)),
+        ms(median(poll_times))
+    );
+    std::fs::remove_file(&followed).ok();
+}
+
+/// A study of 100 cells (column `cell`, values c000 … c099) and three measures; every
+/// fourth quota has a population (so the hypergeometric forms run too).
+fn b3_study() -> Study {
+    let mut text = String::from(
+        "title = \"B3 (invented)\"\n[source]\nfile = \"none.csv\"\n[target]\nmargin = 0.03\nconfidence = 0.95\n[cells]\nby = [\"cell\"]\n",
+    );
+    for (name, column) in [("a", "qa"), ("b", "qb"), ("c", "qc")] {
+        text.push_str(&format!(
+            "[[measure]]\nname = \"{name}\"\ncolumn = \"{column}\"\nyes = [\"1\"]\nno = [\"0\"]\n"
+        ));
+    }
+    for c in 0..100 {
+        text.push_str(&format!("[[quota]]\ncell = {{ cell = \"c{c:03}\" }}\n"));
+        if c % 4 == 3 {
+            text.push_str("population = 40000\n");
+        }
+    }
+    Study::parse(&text, Path::new("b3.toml")).expect("a valid study")
+}
+
+fn b3() {
+    let study = b3_study();
+    let layout: Layout = study.layout(&["cell", "qa", "qb", "qc"]).unwrap();
+    let mut tally = Tally::new(3);
+    let mut rng = responses::Mix::new(7);
+    let mut record = csv::ByteRecord::new();
+    let mut line = 2;
+    let mut add = |tally: &mut Tally, cell: u64, rng: &mut responses::Mix| {
+        record.clear();
+        record.push_field(format!("c{cell:03}").as_bytes());
+        for p in [30, 50, 80] {
+            record.push_field(if rng.below(100) < p { b"1" } else { b"0" });
+        }
+        tally.add_record(&layout, &record, line);
+        line += 1;
+    };
+    // Cells of 1,000 to 20,000 responses.
+    for cell in 0..100 {
+        for _ in 0..1000 + 190 * cell {
+            add(&mut tally, cell, &mut rng);
+        }
+    }
+    let as_of: jiff::Timestamp = "2026-06-01T00:00:00Z".parse().unwrap();
+    let mut times = Vec::new();
+    for _ in 0..RUNS {
+        for cell in 0..100 {
+            add(&mut tally, cell, &mut rng);
+        }
+        let start = Instant::now();
+        let snapshot = assess(&study, &tally, as_of);
+        times.push(start.elapsed().as_secs_f64());
+        assert_eq!(snapshot.cells.len(), 100);
+        std::hint::black_box(snapshot);
+    }
+    let warm = {
+        let start = Instant::now();
+        std::hint::black_box(assess(&study, &tally, as_of));
+        start.elapsed().as_secs_f64()
+    };
+    println!(
+        "B3 assess, 100 cells × 3 measures, every method, every n new: {} (median of {RUNS}); same n again: {}",
+        ms(median(times)),
+        ms(warm)
+    );
+}
+
+fn main() {
+    let args: Vec<String> = std::env::args().skip(1).filter(|a| a != "--bench").collect();
+    let want = |name: &str| args.is_empty() || args.iter().any(|a| a == name);
+    if want("b3") {
+        b3();
+    }
+    if want("b2") {
+        let sizes = std::env::var("CLOSEOUT_BENCH_ROWS")
+            .unwrap_or_else(|_| "1000000 10000000".to_string());
+        for rows in sizes.split_whitespace() {
+            b2(rows.parse().expect("a row count"));
+        }
+    }
+}
