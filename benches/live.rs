@@ -171,14 +171,17 @@ fn b3() {
 }
 
 fn main() {
-    let args: Vec<String> = std::env::args().skip(1).filter(|a| a != "--bench").collect();
+    let args: Vec<String> = std::env::args()
+        .skip(1)
+        .filter(|a| a != "--bench")
+        .collect();
     let want = |name: &str| args.is_empty() || args.iter().any(|a| a == name);
     if want("b3") {
         b3();
     }
     if want("b2") {
-        let sizes = std::env::var("CLOSEOUT_BENCH_ROWS")
-            .unwrap_or_else(|_| "1000000 10000000".to_string());
+        let sizes =
+            std::env::var("CLOSEOUT_BENCH_ROWS").unwrap_or_else(|_| "1000000 10000000".to_string());
         for rows in sizes.split_whitespace() {
             b2(rows.parse().expect("a row count"));
         }

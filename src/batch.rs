@@ -2,10 +2,9 @@
 //! the study names, check its header against the study, and tally every record.
 
 use std::fs::File;
-use std::io::BufReader;
 
 use crate::study::{Study, StudyError};
-use crate::tally::{Tally, TallyError, tally_csv};
+use crate::tally::{Tally, TallyError, tally_csv_sized};
 
 /// Why the responses could not be read. Bad rows are never an error.
 #[derive(Debug, thiserror::Error)]
@@ -31,10 +30,12 @@ pub fn read(study: &Study) -> Result<Tally, ReadError> {
         study: study.study_path.display().to_string(),
         error: e.to_string(),
     })?;
-    let (_, tally) = tally_csv(
+    let size = file.metadata().ok().map(|m| m.len());
+    let (_, tally) = tally_csv_sized(
         |header| study.layout(header),
-        BufReader::new(file),
+        file,
         study.source.delimiter,
+        size,
     )
     .map_err(|error| match error {
         // The study's own message already names the file.

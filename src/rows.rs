@@ -301,7 +301,7 @@ pub fn read_record<'a>(
     })
 }
 
-fn parse_weight(raw: &str) -> Result<f64, Reason> {
+pub(crate) fn parse_weight(raw: &str) -> Result<f64, Reason> {
     match raw.parse::<f64>() {
         Ok(w) if w.is_finite() && w >= 0.0 => Ok(w + 0.0), // −0 becomes 0
         Ok(w) if w.is_finite() => Err(Reason::NegativeWeight(raw.to_string())),

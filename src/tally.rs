@@ -18,8 +18,7 @@
 //! exactly where this one ends. See [`Tally::continuing`] for the patterns this
 //! allows.
 
-use std::collections::{BTreeMap, BTreeSet, HashSet};
-use std::fmt;
+use std::collections::{BTreeMap, BTreeSet};
 use std::io::Read;
 use std::sync::atomic::{AtomicU64, Ordering};
 
@@ -27,6 +26,12 @@ use jiff::Timestamp;
 
 use crate::bounds::WeightSums;
 use crate::rows::{self, Answer, Layout, Rejection, Response};
+
+mod counter;
+mod ids;
+
+pub use counter::Counter;
+use ids::IdSet;
 
 /// Rejections and duplicates listed in full (the rest are counted).
 pub const LISTED: usize = 50;
@@ -108,6 +113,44 @@ impl MeasureTally {
         }
     }
 
+    /// `yes` yes answers and `no` no answers, each of weight `weight`, without
+    /// bringing `weights` up to date (call `round`). Exactly what adding them one by
+    /// one gives, for a weight of 0 or between 2⁻⁴⁰⁰ and 2⁴⁰⁰ (see [`repeat_exactly`]).
+    fn add_many(&mut self, yes: u64, no: u64, weight: f64) {
+        let count = yes + no;
+        if count == 0 {
+            return;
+        }
+        self.n += count;
+        self.successes += yes;
+        for (sum, (times, term)) in
+            self.exact
+                .iter_mut()
+                .zip([(count, weight), (count, weight * weight), (yes, weight)])
+        {
+            let (hi, lo) = repeat_exactly(times, term);
+            sum.add(hi);
+            sum.add(lo);
+        }
+    }
+
+    /// [`MeasureTally::add`] without bringing `weights` up to date (call `round`).
+    fn add_unrounded(&mut self, answer: Answer, weight: f64) {
+        match answer {
+            Answer::Yes | Answer::No => {
+                self.n += 1;
+                self.exact[0].add(weight);
+                self.exact[1].add(weight * weight);
+                if answer == Answer::Yes {
+                    self.successes += 1;
+                    self.exact[2].add(weight);
+                }
+            }
+            Answer::Missing => self.missing += 1,
+            Answer::Unexpected => self.unexpected += 1,
+        }
+    }
+
     /// Add another tally of the same measure. Exact, and the order does not matter.
     pub fn merge(&mut self, other: &MeasureTally) {
         self.n += other.n;
@@ -127,6 +170,24 @@ impl MeasureTally {
             sum_wy: self.exact[2].value(),
         };
     }
+}
+
+/// Whether [`repeat_exactly`] is exact for a term: 0, or between 2⁻⁴⁰⁰ and 2⁴⁰⁰ (so
+/// that the term, its square and their products with a count below 2⁵³ stay far from
+/// underflow and overflow).
+pub(crate) fn repeats_exactly(term: f64) -> bool {
+    term == 0.0
+        || (term.abs() >= f64::from_bits(623 << 52) && term.abs() <= f64::from_bits(1423 << 52))
+}
+
+/// `times × term` as two floats whose exact sum it is (the product rounded, and its
+/// rounding error by a fused multiply-add; Dekker 1971, "A floating-point technique
+/// for extending the available precision"). Exact when `times < 2⁵³` and
+/// [`repeats_exactly`] holds for the term.
+fn repeat_exactly(times: u64, term: f64) -> (f64, f64) {
+    let c = times as f64;
+    let hi = c * term;
+    (hi, c.mul_add(term, -hi))
 }
 
 /// A sum of f64 terms held exactly, as non-overlapping partial sums in increasing
@@ -356,88 +417,6 @@ impl CellTally {
     }
 }
 
-/// The ids already counted, each held as a 128-bit hash in a `HashSet<u128>`
-/// (16 bytes and a control byte per slot, at most 7/8 full): memory grows with the
-/// number of distinct ids, never with the number of records.
-///
-/// The hash is two SipHash-2-4 values of the trimmed id bytes under two fixed keys,
-/// so it is the same in every run. Two distinct ids share a hash with probability
-/// about 2⁻¹²⁸ per pair: below n²/2¹²⁹ for n ids, about 1.5 × 10⁻²³ for 10⁸ ids. A
-/// collision would make a genuine response count as a duplicate (and be listed as
-/// one). The keys are public, so this is no defence against ids crafted to collide;
-/// ids come from the survey system, not from respondents.
-#[derive(Clone, Default, PartialEq, Eq)]
-struct IdSet(HashSet<u128>);
-
-const ID_KEYS: [(u64, u64); 2] = [
-    // The first hexadecimal digits of π: constants with nothing up the sleeve.
-    (0x243f_6a88_85a3_08d3, 0x1319_8a2e_0370_7344),
-    (0xa409_3822_299f_31d0, 0x082e_fa98_ec4e_6c89),
-];
-
-impl IdSet {
-    /// Claim an id: true if it was not seen before.
-    fn insert(&mut self, id: &[u8]) -> bool {
-        self.0.insert(id_hash(id))
-    }
-}
-
-impl fmt::Debug for IdSet {
-    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        write!(f, "IdSet({} ids)", self.0.len())
-    }
-}
-
-fn id_hash(id: &[u8]) -> u128 {
-    let [(a0, a1), (b0, b1)] = ID_KEYS;
-    (u128::from(siphash24(a0, a1, id)) << 64) | u128::from(siphash24(b0, b1, id))
-}
-
-/// SipHash-2-4 (Aumasson & Bernstein 2012) of `message` under the key (k0, k1).
-fn siphash24(k0: u64, k1: u64, message: &[u8]) -> u64 {
-    let mut v = [
-        k0 ^ 0x736f_6d65_7073_6575,
-        k1 ^ 0x646f_7261_6e64_6f6d,
-        k0 ^ 0x6c79_6765_6e65_7261,
-        k1 ^ 0x7465_6462_7974_6573,
-    ];
-    fn round(v: &mut [u64; 4]) {
-        v[0] = v[0].wrapping_add(v[1]);
-        v[1] = v[1].rotate_left(13) ^ v[0];
-        v[0] = v[0].rotate_left(32);
-        v[2] = v[2].wrapping_add(v[3]);
-        v[3] = v[3].rotate_left(16) ^ v[2];
-        v[0] = v[0].wrapping_add(v[3]);
-        v[3] = v[3].rotate_left(21) ^ v[0];
-        v[2] = v[2].wrapping_add(v[1]);
-        v[1] = v[1].rotate_left(17) ^ v[2];
-        v[2] = v[2].rotate_left(32);
-    }
-    let compress = |v: &mut [u64; 4], m: u64| {
-        v[3] ^= m;
-        round(v);
-        round(v);
-        v[0] ^= m;
-    };
-    let blocks = message.chunks_exact(8);
-    let tail = blocks.remainder();
-    for block in blocks {
-        let mut bytes = [0u8; 8];
-        bytes.copy_from_slice(block);
-        compress(&mut v, u64::from_le_bytes(bytes));
-    }
-    let mut last = (message.len() as u64) << 56;
-    for (i, &b) in tail.iter().enumerate() {
-        last |= u64::from(b) << (8 * i);
-    }
-    compress(&mut v, last);
-    v[2] ^= 0xff;
-    for _ in 0..4 {
-        round(&mut v);
-    }
-    v[0] ^ v[1] ^ v[2] ^ v[3]
-}
-
 /// Where a tally sits in a stream of records: which stream, and how many records of
 /// it came before its own.
 #[derive(Clone, Copy, Debug)]
@@ -649,11 +628,7 @@ impl Tally {
         if let Some(id) = response.id
             && !self.ids.insert(id)
         {
-            self.duplicates += 1;
-            if self.first_duplicates.len() < LISTED {
-                self.first_duplicates
-                    .push((line, String::from_utf8_lossy(id).into_owned()));
-            }
+            self.note_duplicate(line, id);
             return;
         }
         let key = CellKey::of(&response.cell);
@@ -677,6 +652,14 @@ impl Tally {
         }
     }
 
+    fn note_duplicate(&mut self, line: u64, id: &[u8]) {
+        self.duplicates += 1;
+        if self.first_duplicates.len() < LISTED {
+            self.first_duplicates
+                .push((line, String::from_utf8_lossy(id).into_owned()));
+        }
+    }
+
     fn note_unexpected(&mut self, measure: usize, raw: &str) {
         let (Some(named), Some(counts)) = (
             self.named.get_mut(measure),
@@ -696,9 +679,26 @@ impl Tally {
         *counts.entry(key).or_insert(0) += 1;
     }
 
+    /// Make room for about `ids` distinct ids in all, at once (an estimate: the room
+    /// is taken whether or not they come). Changes nothing but memory and speed.
+    pub fn reserve_ids(&mut self, ids: usize) {
+        self.ids.reserve(ids);
+    }
+
+    /// Make room for the ids of a whole input of `total` bytes, judging by the
+    /// distinct ids in its first `read` bytes (nothing when there are none yet).
+    pub fn reserve_ids_for(&mut self, read: u64, total: u64) {
+        let seen = self.ids.len();
+        if seen > 0 && read > 0 && total > read {
+            let expected = seen as f64 * total as f64 / read as f64;
+            self.ids
+                .reserve(expected.min(usize::MAX as f64 / 2.0) as usize);
+        }
+    }
+
     /// Distinct ids counted so far in the stream (this tally's and its predecessors').
     pub fn distinct_ids(&self) -> usize {
-        self.ids.0.len()
+        self.ids.len()
     }
 
     /// Responses counted in every cell.
@@ -737,79 +737,143 @@ pub enum TallyError<E> {
 /// written). Returns the header and the tally.
 pub fn tally_csv<R: Read, E>(
     layout_for: impl FnOnce(&[&str]) -> Result<Layout, E>,
-    mut reader: R,
+    reader: R,
     delimiter: u8,
 ) -> Result<(Vec<String>, Tally), TallyError<E>> {
+    tally_csv_sized(layout_for, reader, delimiter, None)
+}
+
+/// [`tally_csv`] of input whose size is known (`size` bytes, such as a file's), so
+/// that the id set can be given its room once the first block shows how many ids a
+/// byte holds, instead of growing step by step. The result is the same.
+pub fn tally_csv_sized<R: Read, E>(
+    layout_for: impl FnOnce(&[&str]) -> Result<Layout, E>,
+    mut reader: R,
+    delimiter: u8,
+    size: Option<u64>,
+) -> Result<(Vec<String>, Tally), TallyError<E>> {
+    let mut sized = size.is_none();
     let mut parser = crate::follow::Reader::new(delimiter, crate::follow::RECORD_LIMIT);
-    let mut layout_for = Some(layout_for);
-    let mut state: Option<(Vec<String>, Layout, Tally)> = None;
-    let mut records = Vec::new();
+    let mut sink = CsvSink {
+        layout_for: Some(layout_for),
+        state: None,
+        problem: None,
+    };
     let mut warnings = Vec::new();
-    let mut buffer = vec![0u8; 1 << 16];
-    let mut carry: Vec<u8> = Vec::new();
+    let mut buffer = vec![0u8; READ_BLOCK];
+    // Bytes at the front of `buffer` not taken yet (the start of a byte-order mark).
+    let mut kept = 0;
     let mut head: Vec<u8> = Vec::new();
-    let mut ended = false;
-    while !ended {
+    loop {
         let got = loop {
-            match reader.read(&mut buffer) {
+            match reader.read(&mut buffer[kept..]) {
                 Ok(k) => break k,
                 Err(e) if e.kind() == std::io::ErrorKind::Interrupted => {}
                 Err(e) => return Err(TallyError::Io(e.to_string())),
             }
         };
-        carry.extend_from_slice(buffer.get(..got).unwrap_or_default());
+        let data = &buffer[..kept + got];
         if head.len() < 64 {
             let room = 64 - head.len();
-            head.extend_from_slice(carry.get(..room.min(carry.len())).unwrap_or_default());
+            head.extend_from_slice(
+                data.get(kept..(kept + room).min(data.len()))
+                    .unwrap_or_default(),
+            );
             if let Some(why) = crate::follow::looks_like_utf16(&head) {
                 return Err(TallyError::Io(format!(
                     "the file looks like {why}: save it as UTF-8"
                 )));
             }
         }
-        let took = parser.feed(&carry, &mut records, &mut warnings);
-        carry.drain(..took);
+        let took = parser.feed(data, &mut sink, &mut warnings);
         if got == 0 {
-            parser.finish(&mut records, &mut warnings);
-            ended = true;
+            parser.finish(&mut sink, &mut warnings);
         }
-        if state.is_none()
-            && let Some(header) = parser.header()
-            && let Some(resolve) = layout_for.take()
-        {
-            let names = header
-                .iter()
-                .enumerate()
-                .map(|(i, field)| {
-                    std::str::from_utf8(field)
-                        .map(str::to_string)
-                        .map_err(|_| TallyError::HeaderNotUtf8 { column: i + 1 })
-                })
-                .collect::<Result<Vec<String>, _>>()?;
-            let refs: Vec<&str> = names.iter().map(String::as_str).collect();
-            let layout = resolve(&refs).map_err(TallyError::Layout)?;
-            let tally = Tally::new(layout.measures.len());
-            state = Some((names, layout, tally));
+        if let Some(problem) = sink.problem.take() {
+            return Err(problem);
         }
-        if let Some((_, layout, tally)) = state.as_mut() {
-            for record in records.drain(..) {
-                match record.too_long {
-                    Some(bytes) => tally.reject(Rejection {
-                        line: record.line,
-                        reason: rows::Reason::TooLong { bytes },
-                    }),
-                    None => tally.add_record(layout, &record.fields, record.line),
-                }
+        if let Some((_, counter, tally)) = sink.state.as_mut() {
+            counter.flush(tally);
+            if !sized && let Some(total) = size {
+                tally.reserve_ids_for(parser.taken(), total);
+                sized = true;
             }
         }
         warnings.clear();
+        if got == 0 {
+            break;
+        }
+        buffer.copy_within(took..kept + got, 0);
+        kept = kept + got - took;
     }
-    let (header, _, tally) = state.ok_or(TallyError::NoHeader)?;
+    let (header, _, tally) = sink.state.ok_or(TallyError::NoHeader)?;
     Ok((header, tally))
+}
+
+/// How many bytes a batch read asks for at a time.
+const READ_BLOCK: usize = 1 << 20;
+
+/// Where [`tally_csv`]'s reader hands the header and the records.
+struct CsvSink<E, F> {
+    layout_for: Option<F>,
+    state: Option<(Vec<String>, Counter, Tally)>,
+    problem: Option<TallyError<E>>,
+}
+
+impl<E, F: FnOnce(&[&str]) -> Result<Layout, E>> crate::follow::Out for CsvSink<E, F> {
+    fn header(&mut self, header: &csv::ByteRecord) {
+        let Some(resolve) = self.layout_for.take() else {
+            return;
+        };
+        let names = header
+            .iter()
+            .enumerate()
+            .map(|(i, field)| {
+                std::str::from_utf8(field)
+                    .map(str::to_string)
+                    .map_err(|_| TallyError::HeaderNotUtf8 { column: i + 1 })
+            })
+            .collect::<Result<Vec<String>, _>>();
+        let names = match names {
+            Ok(names) => names,
+            Err(e) => {
+                self.problem = Some(e);
+                return;
+            }
+        };
+        let refs: Vec<&str> = names.iter().map(String::as_str).collect();
+        match resolve(&refs) {
+            Ok(layout) => {
+                let tally = Tally::new(layout.measures.len());
+                self.state = Some((names, Counter::new(&layout), tally));
+            }
+            Err(e) => self.problem = Some(TallyError::Layout(e)),
+        }
+    }
+
+    fn record(
+        &mut self,
+        line: u64,
+        _offset: u64,
+        fields: crate::follow::Fields<'_>,
+        too_long: Option<u64>,
+    ) {
+        let Some((_, counter, tally)) = self.state.as_mut() else {
+            return;
+        };
+        match too_long {
+            Some(bytes) => tally.reject(Rejection {
+                line,
+                reason: rows::Reason::TooLong { bytes },
+            }),
+            None => counter.add(tally, fields, line),
+        }
+    }
 }
 
 #[cfg(test)]
 mod tests {
+    use super::ids::{id_hash, siphash24};
     use super::*;
     use crate::rows::MeasureRule;
     use rand::seq::SliceRandom;
@@ -1486,13 +1550,13 @@ south,old\r
         assert_eq!(distinct.distinct_ids(), 200_000);
         assert_eq!(distinct.rows_read, 200_000);
         assert_eq!(distinct.duplicates, 0);
-        // 16-byte hashes in a table at most 7/8 full, doubling as it grows.
-        assert!(distinct.ids.0.capacity() < 2 * 200_000);
+        // 16-byte hashes in tables at least 8/15 full: at most 30 bytes per id.
+        assert!(distinct.ids.capacity() * 16 <= 30 * 200_000);
 
         let repeated = many_records(200_000, 1_000);
         assert_eq!(repeated.distinct_ids(), 1_000);
         assert_eq!(repeated.duplicates, 199_000);
-        assert!(repeated.ids.0.capacity() < 2 * 1_000);
+        assert!(repeated.ids.capacity() < 256 * 16);
 
         // Besides the ids, what is kept does not grow with the records: 3 cells × 2
         // measures, 5 hour buckets each, one unexpected value (and its name).

@@ -316,6 +316,87 @@ proptest! {
     }
 }
 
+/// The records written as CSV text (quoted where the csv crate's writer quotes, some
+/// with CRLF ends, some padded with white space a byte-wise trim would miss, some
+/// with text beyond ASCII), and the same text read back record by record with the
+/// csv crate, each with the line it was written on (the csv crate's own line count
+/// skips the blank line after a CRLF).
+fn as_csv(seed: u64, all: &[(csv::ByteRecord, u64)]) -> (Vec<u8>, Vec<(csv::ByteRecord, u64)>) {
+    let mut rng = ChaCha8Rng::seed_from_u64(seed ^ 0x5eed);
+    let mut text = b"region,age,q1,q2,id,w,t\n".to_vec();
+    let mut lines = Vec::new();
+    for (record, _) in all {
+        let mut fields: Vec<Vec<u8>> = record.iter().map(<[u8]>::to_vec).collect();
+        if let Some(f) = fields.get_mut(rng.random_range(0..7)) {
+            let prefix: &[u8] = match rng.random_range(0..12) {
+                0 => b"\x0b ",
+                1 => "\u{a0}".as_bytes(),
+                2 => "Zürich ".as_bytes(),
+                3 => b"a\"b",
+                _ => b"",
+            };
+            f.splice(0..0, prefix.iter().copied());
+        }
+        lines.push(1 + text.iter().filter(|&&b| b == b'\n').count() as u64);
+        let mut writer = csv::WriterBuilder::new()
+            .flexible(true)
+            .terminator(if rng.random_bool(0.2) {
+                csv::Terminator::CRLF
+            } else {
+                csv::Terminator::Any(b'\n')
+            })
+            .from_writer(Vec::new());
+        writer.write_record(&fields).unwrap();
+        text.extend_from_slice(&writer.into_inner().unwrap());
+        if rng.random_bool(0.05) {
+            text.extend_from_slice(b"\n");
+        }
+    }
+    let mut reader = csv::ReaderBuilder::new()
+        .has_headers(true)
+        .flexible(true)
+        .from_reader(&text[..]);
+    let back = reader
+        .byte_records()
+        .map(Result::unwrap)
+        .zip(lines)
+        .collect();
+    (text, back)
+}
+
+proptest! {
+    #![proptest_config(ProptestConfig {
+        cases: 128,
+        rng_seed: proptest::test_runner::RngSeed::Fixed(20261202),
+        ..ProptestConfig::default()
+    })]
+
+    /// `tally_csv` reads most records in place (split without the csv parser, cells,
+    /// answers, weights and times through caches, sums staged per cell and weight) and
+    /// the rest record by record: the result is the record-by-record tally, exactly.
+    #[test]
+    fn the_fast_read_equals_record_by_record(seed in any::<u64>(), len in 0usize..600) {
+        let (text, back) = as_csv(seed, &records(seed, len));
+        let (_, fast) = closeout::tally::tally_csv(
+            |_: &[&str]| Ok::<_, ()>(layout()),
+            &text[..],
+            b',',
+        )
+        .unwrap();
+        let slow = one_pass(&back);
+        prop_assert_eq!(&fast, &slow);
+        for (cell, m) in fast.cells.values().zip(slow.cells.values()) {
+            prop_assert_eq!(&cell.label, &m.label);
+            prop_assert_eq!(&cell.arrivals, &m.arrivals);
+            for (a, b) in cell.measures.iter().zip(&m.measures) {
+                prop_assert_eq!(a.weights.sum_w.to_bits(), b.weights.sum_w.to_bits());
+                prop_assert_eq!(a.weights.sum_w2.to_bits(), b.weights.sum_w2.to_bits());
+                prop_assert_eq!(a.weights.sum_wy.to_bits(), b.weights.sum_wy.to_bits());
+            }
+        }
+    }
+}
+
 #[test]
 fn the_generated_records_reach_every_case_the_property_needs() {
     // Guard against a generator that silently stops producing the hard cases.

@@ -26,6 +26,71 @@ pub struct Record {
     pub too_long: Option<u64>,
 }
 
+/// A complete record's fields, borrowed from the reader for the time of one call.
+///
+/// Field `i` is `bytes[start(i)..ends[i]]`, where `start(0) = 0` and
+/// `start(i) = ends[i − 1] + gap`: the csv parser writes fields back to back
+/// (`gap` 0), a record without quotes is split in place (`gap` 1, the delimiter).
+#[derive(Clone, Copy, Debug)]
+pub struct Fields<'a> {
+    bytes: &'a [u8],
+    ends: &'a [usize],
+    gap: usize,
+}
+
+impl<'a> Fields<'a> {
+    /// The number of fields.
+    pub fn len(&self) -> usize {
+        self.ends.len()
+    }
+
+    /// Whether there are no fields (a record too long to hold).
+    pub fn is_empty(&self) -> bool {
+        self.ends.is_empty()
+    }
+
+    /// Field `i`, if there is one.
+    pub fn get(&self, i: usize) -> Option<&'a [u8]> {
+        let end = *self.ends.get(i)?;
+        let start = match i.checked_sub(1) {
+            None => 0,
+            Some(before) => self.ends.get(before)? + self.gap,
+        };
+        self.bytes.get(start..end)
+    }
+
+    /// The fields as an owned record.
+    pub fn to_byte_record(&self) -> ByteRecord {
+        let mut record = ByteRecord::with_capacity(self.bytes.len(), self.ends.len());
+        for i in 0..self.len() {
+            record.push_field(self.get(i).unwrap_or_default());
+        }
+        record
+    }
+}
+
+/// Where the reader hands its complete records: the header once (the first record
+/// of the file), then every record after it, in file order.
+pub trait Out {
+    /// The header is complete.
+    fn header(&mut self, _header: &ByteRecord) {}
+    /// A complete record after the header: the line it starts on, its byte offset,
+    /// its fields, and `Some(bytes)` when it was longer than the limit (its fields
+    /// were dropped).
+    fn record(&mut self, line: u64, offset: u64, fields: Fields<'_>, too_long: Option<u64>);
+}
+
+impl Out for Vec<Record> {
+    fn record(&mut self, line: u64, offset: u64, fields: Fields<'_>, too_long: Option<u64>) {
+        self.push(Record {
+            line,
+            offset,
+            fields: fields.to_byte_record(),
+            too_long,
+        });
+    }
+}
+
 const BOM: &[u8] = b"\xef\xbb\xbf";
 
 /// The state of reading one file from its first byte.
@@ -54,6 +119,11 @@ pub(crate) struct Reader {
     header: Option<ByteRecord>,
     /// A run of NUL bytes between records: where it began and how long it is so far.
     nul_run: Option<(u64, u64)>,
+    /// The delimiter, when records without quotes may be split in place (it is not
+    /// the quote or a line end).
+    split_on: Option<u8>,
+    /// The field ends of a record split in place.
+    split_ends: Vec<usize>,
 }
 
 impl Reader {
@@ -75,6 +145,8 @@ impl Reader {
             end: 0,
             header: None,
             nul_run: None,
+            split_on: (!matches!(delimiter, b'"' | b'\r' | b'\n')).then_some(delimiter),
+            split_ends: Vec::with_capacity(64),
         }
     }
 
@@ -88,15 +160,15 @@ impl Reader {
         self.header.as_ref()
     }
 
-    /// Take the bytes that follow those already taken. Complete records after the
-    /// header go to `records`; a record equal to the header is skipped and noted.
+    /// Take the bytes that follow those already taken. The header and the complete
+    /// records after it go to `out`; a record equal to the header is skipped and noted.
     /// Returns how many bytes were taken: all of them, except at the very start of
     /// the file while fewer bytes than a byte-order mark have arrived and they could
     /// still be one (then none).
     pub(crate) fn feed(
         &mut self,
         mut data: &[u8],
-        records: &mut Vec<Record>,
+        out: &mut impl Out,
         warnings: &mut Vec<Warning>,
     ) -> usize {
         let given = data.len();
@@ -134,6 +206,10 @@ impl Reader {
                     break;
                 }
                 self.end_nul_run(warnings);
+                if let Some(len) = self.split_in_place(data, out, warnings) {
+                    data = &data[len..];
+                    continue;
+                }
                 self.in_record = true;
                 self.start_line = self.line;
                 self.start_offset = self.taken;
@@ -162,14 +238,14 @@ impl Reader {
                     limit: self.limit,
                 });
             }
-            self.after_read(result, records, warnings);
+            self.after_read(result, out, warnings);
         }
         given - data.len()
     }
 
     /// The input has ended (a one-shot read of a finished file): a last record
     /// without a line end is complete after all. Nothing happens if no record is open.
-    pub(crate) fn finish(&mut self, records: &mut Vec<Record>, warnings: &mut Vec<Warning>) {
+    pub(crate) fn finish(&mut self, out: &mut impl Out, warnings: &mut Vec<Warning>) {
         self.end_nul_run(warnings);
         while self.in_record {
             let (result, _, nout, nend) = self.csv.read_record(
@@ -185,9 +261,47 @@ impl Reader {
             ) {
                 self.in_record = false;
             } else {
-                self.after_read(result, records, warnings);
+                self.after_read(result, out, warnings);
             }
         }
+    }
+
+    /// The fast way through a record that starts at `data[0]`: when its line end is
+    /// in `data` and no quote comes before it, the csv parser would give exactly the
+    /// bytes between the delimiters, so split them in place. The record ends at the
+    /// first CR or LF, as it does for the parser (which treats CR, LF and CRLF alike);
+    /// the line end itself is left for the skip of line ends between records. The
+    /// parser is not involved, and its state after the previous record (between
+    /// records) stays right for the next one. Returns the record's length, or `None`
+    /// to leave the record to the parser.
+    fn split_in_place(
+        &mut self,
+        data: &[u8],
+        out: &mut impl Out,
+        warnings: &mut Vec<Warning>,
+    ) -> Option<usize> {
+        let delimiter = self.split_on?;
+        let len = memchr::memchr2(b'\n', b'\r', data)?;
+        let line = &data[..len];
+        // The parser counts the line end in a record's length too.
+        if len as u64 >= self.limit || memchr::memchr(b'"', line).is_some() {
+            return None;
+        }
+        let mut ends = std::mem::take(&mut self.split_ends);
+        ends.clear();
+        ends.extend(memchr::memchr_iter(delimiter, line));
+        ends.push(len);
+        self.start_line = self.line;
+        self.start_offset = self.taken;
+        self.taken += len as u64;
+        let fields = Fields {
+            bytes: line,
+            ends: &ends,
+            gap: 1,
+        };
+        self.complete(fields, None, out, warnings);
+        self.split_ends = ends;
+        Some(len)
     }
 
     /// What to do after one call of the csv parser: grow the output buffers (or, for
@@ -195,7 +309,7 @@ impl Reader {
     fn after_read(
         &mut self,
         result: csv_core::ReadRecordResult,
-        records: &mut Vec<Record>,
+        out: &mut impl Out,
         warnings: &mut Vec<Warning>,
     ) {
         use csv_core::ReadRecordResult as Read;
@@ -211,7 +325,7 @@ impl Reader {
                 let len = self.ends.len();
                 self.ends.resize(len * 2, 0);
             }
-            Read::Record => self.finish_record(records, warnings),
+            Read::Record => self.finish_record(out, warnings),
         }
     }
 
@@ -221,24 +335,41 @@ impl Reader {
         }
     }
 
-    fn finish_record(&mut self, records: &mut Vec<Record>, warnings: &mut Vec<Warning>) {
+    fn finish_record(&mut self, out: &mut impl Out, warnings: &mut Vec<Warning>) {
         self.in_record = false;
-        let mut fields = ByteRecord::new();
-        let too_long = if self.dropping {
-            Some(self.pending)
+        let too_long = self.dropping.then_some(self.pending);
+        let (out_len, end_len) = if self.dropping {
+            (0, 0)
         } else {
-            let mut from = 0;
-            for &to in self.ends.get(..self.end).unwrap_or_default() {
-                fields.push_field(self.fields.get(from..to).unwrap_or_default());
-                from = to;
-            }
-            None
+            (self.out, self.end)
         };
         self.dropping = false;
         self.out = 0;
         self.end = 0;
+        let fields = std::mem::take(&mut self.fields);
+        let ends = std::mem::take(&mut self.ends);
+        let view = Fields {
+            bytes: fields.get(..out_len).unwrap_or_default(),
+            ends: ends.get(..end_len).unwrap_or_default(),
+            gap: 0,
+        };
+        self.complete(view, too_long, out, warnings);
+        self.fields = fields;
+        self.ends = ends;
+    }
+
+    /// A record is complete: it is the header, a repeat of the header, or a record.
+    fn complete(
+        &mut self,
+        fields: Fields<'_>,
+        too_long: Option<u64>,
+        out: &mut impl Out,
+        warnings: &mut Vec<Warning>,
+    ) {
         let Some(header) = &self.header else {
-            self.header = Some(fields);
+            let header = fields.to_byte_record();
+            out.header(&header);
+            self.header = Some(header);
             return;
         };
         if too_long.is_none() && same_as_header(&fields, header) {
@@ -247,31 +378,23 @@ impl Reader {
             });
             return;
         }
-        records.push(Record {
-            line: self.start_line,
-            offset: self.start_offset,
-            fields,
-            too_long,
-        });
+        out.record(self.start_line, self.start_offset, fields, too_long);
     }
 }
 
 /// Whether a record repeats the header (a second export appended to the first,
 /// perhaps with its own byte-order mark).
-fn same_as_header(record: &ByteRecord, header: &ByteRecord) -> bool {
+fn same_as_header(record: &Fields<'_>, header: &ByteRecord) -> bool {
     record.len() == header.len()
-        && record
-            .iter()
-            .enumerate()
-            .zip(header)
-            .all(|((i, mine), theirs)| {
-                let mine = if i == 0 {
-                    mine.strip_prefix(BOM).unwrap_or(mine)
-                } else {
-                    mine
-                };
-                mine == theirs
-            })
+        && header.iter().enumerate().all(|(i, theirs)| {
+            let mine = record.get(i).unwrap_or_default();
+            let mine = if i == 0 {
+                mine.strip_prefix(BOM).unwrap_or(mine)
+            } else {
+                mine
+            };
+            mine == theirs
+        })
 }
 
 /// Why the first bytes of a file look like UTF-16 text, if they do: a UTF-16
