@@ -306,96 +306,18 @@ pub fn assess(study: &Study, tally: &Tally, as_of: Timestamp) -> Snapshot {
         .checked_sub(SignedDuration::from_hours(RATE_WINDOW_HOURS))
         .unwrap_or(as_of);
 
-    let mut cells: Vec<CellView> = inputs
-        .iter()
-        .map(|input| {
-            let t = input.tally.unwrap_or(&empty);
-            let tune_for = study.tune_for(input.quota);
-            let population = input.quota.and_then(|q| q.population);
-            let minimum = input.quota.and_then(|q| q.minimum);
-            let mut warnings = Vec::new();
-            if let Some(total) = population
-                && t.responses > total
-            {
-                warnings.push(format!(
-                    "{} responses exceed the cell's population of {total}: the population is not used",
-                    t.responses
-                ));
-            }
-            let measures: Vec<MeasureView> = study
-                .measures
-                .iter()
-                .zip(t.measures.iter().chain(std::iter::repeat(&MeasureTally::default())))
-                .map(|(m, mt)| {
-                    let d = Decision { level, target, decide_by, tune_for, population, weighted };
-                    measure_view(&m.name, mt, &d)
-                })
-                .collect();
-            // Needed responses: each measure's need scaled by the share of responses
-            // that answer it yes or no, and the minimum.
-            let mut needed = Some(minimum.unwrap_or(0).saturating_sub(t.responses));
-            for m in &measures {
-                let scaled = m.needed.map(|k| {
-                    if m.n == 0 || t.responses == 0 {
-                        k
-                    } else {
-                        (k as f64 * t.responses as f64 / m.n as f64).ceil() as u64
-                    }
-                });
-                needed = match (needed, scaled) {
-                    (Some(a), Some(b)) => Some(a.max(b)),
-                    _ => None,
-                };
-            }
-            let met = measures.iter().all(|m| m.met) && t.responses >= minimum.unwrap_or(0);
-            let rate_per_hour = rate(t, study_first, as_of);
-            let eta = match (met, needed, rate_per_hour) {
-                (false, Some(k), Some(r)) if r > 0.0 => {
-                    let secs = (k as f64 / r * 3600.0).min(1e12).round() as i64;
-                    as_of.checked_add(SignedDuration::from_secs(secs)).ok()
-                }
-                _ => None,
-            };
-            let quiet = t.arrivals.latest().is_none_or(|l| l < lately) && rate_per_hour.is_some();
-            let late = matches!((eta, study.target.deadline), (Some(e), Some(d)) if e > d);
-            let past_deadline = study.target.deadline.is_some_and(|d| as_of > d);
-            let status = if met {
-                Status::Met
-            } else if input.planned && (quiet || late || past_deadline || rate_per_hour == Some(0.0)) {
-                Status::AtRisk
-            } else {
-                Status::Open
-            };
-            let progress = match needed {
-                _ if met => 1.0,
-                Some(k) if t.responses + k > 0 => t.responses as f64 / (t.responses + k) as f64,
-                _ => 0.0,
-            };
-            let values: Vec<String> = match input.quota {
-                Some(q) => q.cell.clone(),
-                None if !t.label.is_empty() => t.label.clone(),
-                None => input.key.0.clone(),
-            };
-            let label = if values.is_empty() { "all responses".to_string() } else { values.join(" × ") };
-            CellView {
-                cell: study.cells.iter().cloned().zip(values).collect(),
-                label,
-                planned: input.planned,
-                responses: t.responses,
-                minimum,
-                population,
-                tune_for,
-                status,
-                rate_per_hour,
-                eta,
-                needed: if met { Some(0) } else { needed },
-                progress,
-                latest_arrival: t.arrivals.latest(),
-                measures,
-                warnings,
-            }
-        })
-        .collect();
+    let context = CellContext {
+        study,
+        empty: &empty,
+        level,
+        target,
+        decide_by,
+        weighted,
+        study_first,
+        lately,
+        as_of,
+    };
+    let mut cells = cell_views(&inputs, &context);
     cells.sort_by(|a, b| {
         (!a.planned, a.status, a.progress)
             .partial_cmp(&(!b.planned, b.status, b.progress))
@@ -468,5 +390,174 @@ pub fn assess(study: &Study, tally: &Tally, as_of: Timestamp) -> Snapshot {
             .collect(),
         unexpected,
         cautions: CAUTIONS,
+    }
+}
+
+/// What every cell's view is computed from, besides the cell itself.
+struct CellContext<'a> {
+    study: &'a Study,
+    empty: &'a CellTally,
+    level: Level,
+    target: f64,
+    decide_by: Method,
+    weighted: bool,
+    study_first: Option<Timestamp>,
+    lately: Timestamp,
+    as_of: Timestamp,
+}
+
+/// Cells at least this many are shared out over the cores.
+const CELLS_PER_CORE: usize = 4;
+
+/// The view of every cell, in the order of `inputs`. Each cell is independent of the
+/// others (the margin engine's memo is shared and gives the same numbers whichever
+/// thread fills it), so they are computed on up to
+/// [`std::thread::available_parallelism`] threads, dealt out in turn (neighbouring
+/// cells often have similar sizes, and the cost grows with the size).
+fn cell_views(inputs: &[CellInput<'_>], context: &CellContext<'_>) -> Vec<CellView> {
+    let cores = std::thread::available_parallelism().map_or(1, |c| c.get());
+    let workers = cores.min(inputs.len() / CELLS_PER_CORE).max(1);
+    if workers == 1 {
+        return inputs.iter().map(|i| cell_view(i, context)).collect();
+    }
+    let share = |w: usize| {
+        inputs
+            .iter()
+            .skip(w)
+            .step_by(workers)
+            .map(|i| cell_view(i, context))
+            .collect::<Vec<_>>()
+    };
+    let shares: Vec<Vec<CellView>> = std::thread::scope(|scope| {
+        let handles: Vec<_> = (1..workers)
+            .map(|w| scope.spawn(move || share(w)))
+            .collect();
+        let mut shares = vec![share(0)];
+        // A worker can only fail by panicking, which the lints rule out; compute its
+        // share here if it ever does.
+        for (w, handle) in (1..workers).zip(handles) {
+            shares.push(handle.join().unwrap_or_else(|_| share(w)));
+        }
+        shares
+    });
+    let mut shares: Vec<_> = shares.into_iter().map(Vec::into_iter).collect();
+    (0..inputs.len())
+        .filter_map(|i| shares.get_mut(i % workers).and_then(Iterator::next))
+        .collect()
+}
+
+/// One cell's view.
+fn cell_view(input: &CellInput<'_>, context: &CellContext<'_>) -> CellView {
+    let CellContext {
+        study,
+        empty,
+        level,
+        target,
+        decide_by,
+        weighted,
+        study_first,
+        lately,
+        as_of,
+    } = *context;
+
+    let t = input.tally.unwrap_or(empty);
+    let tune_for = study.tune_for(input.quota);
+    let population = input.quota.and_then(|q| q.population);
+    let minimum = input.quota.and_then(|q| q.minimum);
+    let mut warnings = Vec::new();
+    if let Some(total) = population
+        && t.responses > total
+    {
+        warnings.push(format!(
+            "{} responses exceed the cell's population of {total}: the population is not used",
+            t.responses
+        ));
+    }
+    let measures: Vec<MeasureView> = study
+        .measures
+        .iter()
+        .zip(
+            t.measures
+                .iter()
+                .chain(std::iter::repeat(&MeasureTally::default())),
+        )
+        .map(|(m, mt)| {
+            let d = Decision {
+                level,
+                target,
+                decide_by,
+                tune_for,
+                population,
+                weighted,
+            };
+            measure_view(&m.name, mt, &d)
+        })
+        .collect();
+    // Needed responses: each measure's need scaled by the share of responses
+    // that answer it yes or no, and the minimum.
+    let mut needed = Some(minimum.unwrap_or(0).saturating_sub(t.responses));
+    for m in &measures {
+        let scaled = m.needed.map(|k| {
+            if m.n == 0 || t.responses == 0 {
+                k
+            } else {
+                (k as f64 * t.responses as f64 / m.n as f64).ceil() as u64
+            }
+        });
+        needed = match (needed, scaled) {
+            (Some(a), Some(b)) => Some(a.max(b)),
+            _ => None,
+        };
+    }
+    let met = measures.iter().all(|m| m.met) && t.responses >= minimum.unwrap_or(0);
+    let rate_per_hour = rate(t, study_first, as_of);
+    let eta = match (met, needed, rate_per_hour) {
+        (false, Some(k), Some(r)) if r > 0.0 => {
+            let secs = (k as f64 / r * 3600.0).min(1e12).round() as i64;
+            as_of.checked_add(SignedDuration::from_secs(secs)).ok()
+        }
+        _ => None,
+    };
+    let quiet = t.arrivals.latest().is_none_or(|l| l < lately) && rate_per_hour.is_some();
+    let late = matches!((eta, study.target.deadline), (Some(e), Some(d)) if e > d);
+    let past_deadline = study.target.deadline.is_some_and(|d| as_of > d);
+    let status = if met {
+        Status::Met
+    } else if input.planned && (quiet || late || past_deadline || rate_per_hour == Some(0.0)) {
+        Status::AtRisk
+    } else {
+        Status::Open
+    };
+    let progress = match needed {
+        _ if met => 1.0,
+        Some(k) if t.responses + k > 0 => t.responses as f64 / (t.responses + k) as f64,
+        _ => 0.0,
+    };
+    let values: Vec<String> = match input.quota {
+        Some(q) => q.cell.clone(),
+        None if !t.label.is_empty() => t.label.clone(),
+        None => input.key.0.clone(),
+    };
+    let label = if values.is_empty() {
+        "all responses".to_string()
+    } else {
+        values.join(" × ")
+    };
+    CellView {
+        cell: study.cells.iter().cloned().zip(values).collect(),
+        label,
+        planned: input.planned,
+        responses: t.responses,
+        minimum,
+        population,
+        tune_for,
+        status,
+        rate_per_hour,
+        eta,
+        needed: if met { Some(0) } else { needed },
+        progress,
+        latest_arrival: t.arrivals.latest(),
+        measures,
+        warnings,
     }
 }
