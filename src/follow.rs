@@ -189,6 +189,8 @@ pub struct Follower {
     reading: Option<Reading>,
     missing: bool,
     caught_up: bool,
+    /// The size seen at the last poll that found the file.
+    size: Option<u64>,
     warnings: Vec<Warning>,
 }
 
@@ -203,6 +205,7 @@ impl Follower {
             reading: None,
             missing: false,
             caught_up: true,
+            size: None,
             warnings: Vec::new(),
         }
     }
@@ -247,6 +250,25 @@ impl Follower {
 
     /// Look at the file and say what happened since the last poll.
     pub fn poll(&mut self) -> Result<Change, FollowError> {
+        let mut records = Vec::new();
+        let change = self.poll_into(&mut records)?;
+        Ok(match change {
+            Change::Header { header, .. } => Change::Header { header, records },
+            Change::Appended(_) => Change::Appended(records),
+            Change::Resumed(_) => Change::Resumed(records),
+            Change::Reset { why, header, .. } => Change::Reset {
+                why,
+                header,
+                records,
+            },
+            other => other,
+        })
+    }
+
+    /// [`Follower::poll`], handing the header and the records to `out` as they are
+    /// read instead of collecting them: the change returned has no records. When the
+    /// file is read again from its start, `out.start_over` is called first.
+    pub(crate) fn poll_into(&mut self, out: &mut impl Out) -> Result<Change, FollowError> {
         self.caught_up = true;
         // Never open a FIFO or a device: opening a FIFO would block until a writer came.
         match std::fs::metadata(&self.path) {
@@ -276,6 +298,7 @@ impl Follower {
             inode: meta.ino(),
         };
         let size = meta.len();
+        self.size = Some(size);
         // Back after a wait, with something read before it.
         let back = self.missing && self.reading.is_some();
         self.missing = false;
@@ -307,21 +330,19 @@ impl Follower {
             }
             _ => Reading::new(id, self.delimiter, self.limit),
         };
-        let read = self.read(&mut reading, &file, size);
+        if let Some(why) = reset {
+            out.start_over(why);
+        }
+        // An error keeps nothing of a file that cannot be read as UTF-8 CSV; the next
+        // poll looks again from its start.
+        let any = self.read(&mut reading, &file, size, out)?;
         let header_now = reading.reader.header().cloned();
-        let records = match read {
-            Ok(records) => records,
-            Err(e) => {
-                // Keep nothing of a file that cannot be read as UTF-8 CSV; the next
-                // poll looks again from its start.
-                return Err(e);
-            }
-        };
         let told = reading.header_told;
         if header_now.is_some() {
             reading.header_told = true;
         }
         self.reading = Some(reading);
+        let records = Vec::new();
         Ok(match (reset, header_now) {
             (Some(why), header) => Change::Reset {
                 why,
@@ -330,19 +351,21 @@ impl Follower {
             },
             (None, Some(header)) if !told => Change::Header { header, records },
             (None, _) if back => Change::Resumed(records),
-            (None, _) if records.is_empty() => Change::Nothing,
+            (None, _) if !any => Change::Nothing,
             (None, _) => Change::Appended(records),
         })
     }
 
-    /// Read from the offset up to `size` (at most [`READ_LIMIT`] bytes).
+    /// Read from the offset up to `size` (at most [`READ_LIMIT`] bytes), handing the
+    /// records to `out`. Returns whether any record came out.
     fn read(
         &mut self,
         reading: &mut Reading,
         file: &File,
         size: u64,
-    ) -> Result<Vec<Record>, FollowError> {
-        let mut records = Vec::new();
+        out: &mut impl Out,
+    ) -> Result<bool, FollowError> {
+        let mut counting = Counting { out, any: false };
         let stop = size.min(reading.reader.taken().saturating_add(READ_LIMIT));
         let mut buffer = vec![0u8; BLOCK];
         while reading.reader.taken() < stop {
@@ -365,14 +388,38 @@ impl Follower {
                     });
                 }
             }
-            let took = reading.reader.feed(data, &mut records, &mut self.warnings);
+            let took = reading.reader.feed(data, &mut counting, &mut self.warnings);
             reading.remember(&data[..took]);
             if took < got {
                 break; // the first bytes might be a byte-order mark still arriving
             }
         }
         self.caught_up = reading.reader.taken() >= size || stop == size;
-        Ok(records)
+        Ok(counting.any)
+    }
+
+    /// The file's size at the last poll that found it.
+    pub fn size(&self) -> Option<u64> {
+        self.size
+    }
+}
+
+/// An [`Out`] that notes whether any record passed through it.
+struct Counting<'a, O> {
+    out: &'a mut O,
+    any: bool,
+}
+
+impl<O: Out> Out for Counting<'_, O> {
+    fn start_over(&mut self, why: ResetReason) {
+        self.out.start_over(why);
+    }
+    fn header(&mut self, header: &ByteRecord) {
+        self.out.header(header);
+    }
+    fn record(&mut self, line: u64, offset: u64, fields: Fields<'_>, too_long: Option<u64>) {
+        self.any = true;
+        self.out.record(line, offset, fields, too_long);
     }
 }
 

@@ -11,14 +11,14 @@
 
 use csv::ByteRecord;
 
-use crate::follow::{Change, FollowError, Follower, Record, ResetReason, Warning};
-use crate::rows::{Layout, Reason, Rejection};
+use crate::follow::{Change, Fields, FollowError, Follower, Out, ResetReason, Warning};
+use crate::rows::{Reason, Rejection};
 use crate::study::Study;
-use crate::tally::Tally;
+use crate::tally::{Counter, Tally};
 
 /// The most follower polls one [`Live::poll`] makes (each reads at most
 /// [`crate::follow::READ_LIMIT`] bytes).
-pub const POLLS_AT_ONCE: usize = 64;
+pub const POLLS_AT_ONCE: usize = 16;
 
 /// Columns added to and removed from the header, by name, in header order.
 #[derive(Clone, Debug, PartialEq, Eq)]
@@ -78,15 +78,38 @@ pub enum LiveEvent {
 }
 
 /// A study's responses file, followed, and its tally.
+///
+/// # Progress of a long read
+///
+/// [`Live::poll`] does a bounded amount of work: at most [`POLLS_AT_ONCE`] pieces of
+/// [`crate::follow::READ_LIMIT`] bytes (16 MiB). When it returns with
+/// [`Live::caught_up`] false there is more to read: a caller showing progress reads
+/// [`Live::bytes_read`] against [`Live::file_size`] (a rate from two such readings
+/// and the time between them) and polls again. The records are counted as they are
+/// read, through the same record reader and [`Counter`] as the one-shot read.
 #[derive(Debug)]
 pub struct Live {
-    study: Study,
     follower: Follower,
+    state: State,
+}
+
+/// Everything but the follower, so that the follower can hand records to it.
+#[derive(Debug)]
+struct State {
+    study: Study,
     header: Option<Vec<String>>,
-    layout: Option<Layout>,
+    counter: Option<Counter>,
     tally: Tally,
     problem: Option<String>,
     repeated_headers: u64,
+    /// The file is being read again from its start, for this reason; the header will
+    /// say whether the study fits it.
+    starting_over: Option<ResetReason>,
+    /// Records counted in the current poll.
+    counted: u64,
+    /// Whether the id set was given its room for the file being read.
+    sized: bool,
+    events: Vec<LiveEvent>,
 }
 
 impl Live {
@@ -100,34 +123,40 @@ impl Live {
     pub fn with_follower(study: Study, follower: Follower) -> Live {
         let tally = Tally::new(study.measures.len());
         Live {
-            study,
             follower,
-            header: None,
-            layout: None,
-            tally,
-            problem: None,
-            repeated_headers: 0,
+            state: State {
+                study,
+                header: None,
+                counter: None,
+                tally,
+                problem: None,
+                repeated_headers: 0,
+                starting_over: None,
+                counted: 0,
+                sized: false,
+                events: Vec::new(),
+            },
         }
     }
 
     pub fn study(&self) -> &Study {
-        &self.study
+        &self.state.study
     }
 
     /// The tally of the complete records read so far (the last one that fitted the
     /// study, while [`Live::problem`] is set).
     pub fn tally(&self) -> &Tally {
-        &self.tally
+        &self.state.tally
     }
 
     /// The header of the file being counted, once it is complete and valid UTF-8.
     pub fn header(&self) -> Option<&[String]> {
-        self.header.as_deref()
+        self.state.header.as_deref()
     }
 
     /// Why records are not being counted, if they are not.
     pub fn problem(&self) -> Option<&str> {
-        self.problem.as_deref()
+        self.state.problem.as_deref()
     }
 
     /// Whether the file is missing.
@@ -137,7 +166,7 @@ impl Live {
 
     /// Records skipped because they repeat the header, since the last reset.
     pub fn repeated_headers(&self) -> u64 {
-        self.repeated_headers
+        self.state.repeated_headers
     }
 
     /// Whether the last [`Live::poll`] read everything up to the size it saw. When
@@ -146,62 +175,80 @@ impl Live {
         self.follower.caught_up()
     }
 
+    /// Bytes of the file read so far (from its start; after a reset, of the new read).
+    pub fn bytes_read(&self) -> u64 {
+        self.follower.offset()
+    }
+
+    /// The file's size when it was last looked at (`None` before it was found).
+    pub fn file_size(&self) -> Option<u64> {
+        self.follower.size()
+    }
+
     /// Look at the file, count what is new, and say what happened. Polls the
     /// follower until it has caught up with the size it saw, or has read
     /// [`POLLS_AT_ONCE`] pieces (so a caller's loop is never starved by a file that
-    /// grows faster than it is read: see [`Live::caught_up`]).
+    /// grows faster than it is read, and can show progress: see [`Live`]).
     pub fn poll(&mut self) -> Result<Vec<LiveEvent>, FollowError> {
-        let mut events = Vec::new();
+        let state = &mut self.state;
+        state.events.clear();
         for _ in 0..POLLS_AT_ONCE {
-            let change = self.follower.poll()?;
-            self.apply(change, &mut events);
+            state.counted = 0;
+            let change = self.follower.poll_into(state);
+            if let Some(counter) = state.counter.as_mut() {
+                counter.flush(&mut state.tally);
+            }
+            state.after(change?);
+            if !state.sized
+                && state.counter.is_some()
+                && let Some(size) = self.follower.size()
+            {
+                state.tally.reserve_ids_for(self.follower.offset(), size);
+                state.sized = state.tally.distinct_ids() > 0 || self.follower.caught_up();
+            }
             for warning in self.follower.take_warnings() {
                 if matches!(warning, Warning::RepeatedHeader { .. }) {
-                    self.repeated_headers += 1;
+                    state.repeated_headers += 1;
                 }
-                events.push(LiveEvent::Warning(warning));
+                state.events.push(LiveEvent::Warning(warning));
             }
             if self.follower.caught_up() {
                 break;
             }
         }
-        Ok(events)
+        Ok(std::mem::take(&mut state.events))
     }
+}
 
-    fn apply(&mut self, change: Change, events: &mut Vec<LiveEvent>) {
+impl State {
+    /// What a follower poll found, once its records are counted.
+    fn after(&mut self, change: Change) {
         match change {
-            Change::Nothing => {}
-            Change::Waiting => events.push(LiveEvent::Waiting),
-            Change::Resumed(records) => {
-                events.push(LiveEvent::Resumed);
-                self.count(&records, events);
-            }
-            Change::Appended(records) => self.count(&records, events),
-            Change::Header { header, records } => self.begin(&header, &records, None, events),
-            Change::Reset {
-                why,
-                header: Some(header),
-                records,
-            } => self.begin(&header, &records, Some(why), events),
+            Change::Waiting => self.events.push(LiveEvent::Waiting),
+            Change::Resumed(_) => self.events.push(LiveEvent::Resumed),
             Change::Reset {
                 why, header: None, ..
             } => {
                 // A fresh read of a file without a complete header counts nothing.
                 self.tally = Tally::new(self.study.measures.len());
-                self.layout = None;
+                self.counter = None;
                 self.repeated_headers = 0;
-                events.push(LiveEvent::Reset { why, columns: None });
+                self.events.push(LiveEvent::Reset { why, columns: None });
             }
+            Change::Nothing
+            | Change::Appended(_)
+            | Change::Header { .. }
+            | Change::Reset { .. } => {}
+        }
+        self.starting_over = None;
+        if self.counted > 0 {
+            self.events.push(LiveEvent::Counted {
+                records: self.counted,
+            });
         }
     }
 
-    fn begin(
-        &mut self,
-        header: &ByteRecord,
-        records: &[Record],
-        why: Option<ResetReason>,
-        events: &mut Vec<LiveEvent>,
-    ) {
+    fn begin(&mut self, header: &ByteRecord, why: Option<ResetReason>) {
         self.repeated_headers = 0;
         let names: Result<Vec<String>, usize> = header
             .iter()
@@ -221,7 +268,6 @@ impl Live {
                         self.study.source.file.display()
                     ),
                     None,
-                    events,
                 );
                 return;
             }
@@ -237,49 +283,53 @@ impl Live {
         match self.study.layout(&refs) {
             Ok(layout) => {
                 self.tally = Tally::new(self.study.measures.len());
-                self.layout = Some(layout);
+                self.counter = Some(Counter::new(&layout));
                 self.header = Some(names);
                 self.problem = None;
-                events.push(match why {
+                self.sized = false;
+                self.events.push(match why {
                     Some(why) => LiveEvent::Reset { why, columns },
                     None => LiveEvent::Started,
                 });
-                self.count(records, events);
             }
-            Err(e) => self.refuse(e.to_string(), columns, events),
+            Err(e) => self.refuse(e.to_string(), columns),
         }
     }
 
     /// The header does not fit: keep the last statistics, count nothing more.
-    fn refuse(
-        &mut self,
-        message: String,
-        columns: Option<HeaderChange>,
-        events: &mut Vec<LiveEvent>,
-    ) {
-        self.layout = None;
+    fn refuse(&mut self, message: String, columns: Option<HeaderChange>) {
+        self.counter = None;
         self.problem = Some(message.clone());
-        events.push(LiveEvent::HeaderProblem { message, columns });
+        self.events
+            .push(LiveEvent::HeaderProblem { message, columns });
+    }
+}
+
+impl Out for State {
+    fn start_over(&mut self, why: ResetReason) {
+        self.starting_over = Some(why);
     }
 
-    fn count(&mut self, records: &[Record], events: &mut Vec<LiveEvent>) {
-        let Some(layout) = &self.layout else {
+    fn header(&mut self, header: &ByteRecord) {
+        let why = self.starting_over.take();
+        self.begin(header, why);
+    }
+
+    fn record(&mut self, line: u64, _offset: u64, fields: Fields<'_>, too_long: Option<u64>) {
+        let Some(counter) = self.counter.as_mut() else {
             return;
         };
-        if records.is_empty() {
-            return;
-        }
-        for record in records {
-            match record.too_long {
-                Some(bytes) => self.tally.reject(Rejection {
-                    line: record.line,
+        match too_long {
+            Some(bytes) => {
+                // Records waiting in the counter come first.
+                counter.flush(&mut self.tally);
+                self.tally.reject(Rejection {
+                    line,
                     reason: Reason::TooLong { bytes },
-                }),
-                None => self.tally.add_record(layout, &record.fields, record.line),
+                });
             }
+            None => counter.add(&mut self.tally, fields, line),
         }
-        events.push(LiveEvent::Counted {
-            records: records.len() as u64,
-        });
+        self.counted += 1;
     }
 }

@@ -897,3 +897,50 @@ fn the_one_shot_read_and_the_follower_agree_on_awkward_bytes() {
     assert_eq!(one_shot.rejected, 3, "bad time, field count, too long");
     assert_eq!(live.repeated_headers(), 1);
 }
+
+/// A first read larger than one `Live::poll` reads comes back in bounded pieces: each
+/// poll returns with `caught_up` false until the end, `bytes_read` grows towards
+/// `file_size` (what a progress gauge shows), and the tally at the end equals the
+/// one-shot read, ids and duplicates included.
+#[test]
+fn a_long_first_read_shows_its_progress_between_polls() {
+    let f = fixture();
+    let mut text = b"id,region,q1,t\n".to_vec();
+    let piece = closeout::follow::READ_LIMIT * closeout::live::POLLS_AT_ONCE as u64;
+    let mut i = 0u64;
+    while (text.len() as u64) < piece * 2 + 1000 {
+        // Every 97th id repeats an earlier one; times run over several hours.
+        let id = if i % 97 == 5 { i / 2 } else { i };
+        let region = ["north", "south", "east"][(i % 3) as usize];
+        let answer = ["y", "n", ""][(i % 5 % 3) as usize];
+        text.extend_from_slice(
+            format!(
+                "r{id},{region},{answer},2026-05-01T{:02}:{:02}:00Z\n",
+                8 + i / 120_000 % 12,
+                i % 60
+            )
+            .as_bytes(),
+        );
+        i += 1;
+    }
+    append(&f.csv, &text);
+    let mut live = Live::new(f.study.clone());
+    let mut seen = Vec::new();
+    loop {
+        poll(&mut live);
+        seen.push((live.bytes_read(), live.file_size()));
+        if live.caught_up() {
+            break;
+        }
+    }
+    let size = text.len() as u64;
+    assert_eq!(seen.len(), 3, "{seen:?}");
+    assert!(seen.windows(2).all(|w| w[0].0 < w[1].0), "{seen:?}");
+    assert!(seen.iter().all(|&(_, s)| s == Some(size)));
+    assert_eq!(seen[0].0, piece);
+    assert_eq!(seen[2].0, size);
+    let t = live.tally();
+    assert_eq!(t, &fresh(&f.study));
+    assert!(t.duplicates > 0);
+    assert_eq!(t.rows_read, i);
+}

@@ -72,6 +72,9 @@ impl<'a> Fields<'a> {
 /// Where the reader hands its complete records: the header once (the first record
 /// of the file), then every record after it, in file order.
 pub trait Out {
+    /// What was read before no longer stands: the file is read again from its start
+    /// (called by the follower, never by the reader).
+    fn start_over(&mut self, _why: super::ResetReason) {}
     /// The header is complete.
     fn header(&mut self, _header: &ByteRecord) {}
     /// A complete record after the header: the line it starts on, its byte offset,
