@@ -88,9 +88,10 @@ pub fn draw<B: Backend>(terminal: &mut Terminal<B>, app: &mut App) -> Result<(),
 /// Open the dashboard on the study in this terminal and run it until the user quits.
 /// The terminal is restored on the way out, and on a panic.
 pub fn run(study: Study, log: Option<EventLog>, options: Options) -> std::io::Result<()> {
-    // Our themes decide colour: without this, crossterm answers NO_COLOR by writing
-    // a bare "ESC[m" for every colour change, which also switches off bold and
-    // reverse video, and the selection would vanish.
+    // Our themes decide colour (monochrome under NO_COLOR). Left to itself, crossterm
+    // answers NO_COLOR by writing a bare "ESC[m" for every colour change, which also
+    // switches off bold and reverse video; with colour output forced, the styles are
+    // written exactly as the theme sets them.
     ratatui::crossterm::style::force_color_output(true);
     let (sender, events) = channel();
     let feed = feed::spawn(study, log, options.clock, options.poll_only, {
@@ -101,7 +102,14 @@ pub fn run(study: Study, log: Option<EventLog>, options: Options) -> std::io::Re
     spawn_input(sender.clone(), Arc::clone(&stop));
     spawn_ticker(sender, options.clock, Arc::clone(&stop));
 
-    let mut terminal = ratatui::try_init()?;
+    let mut terminal = match ratatui::try_init() {
+        Ok(terminal) => terminal,
+        Err(e) => {
+            ratatui::restore();
+            stop.store(true, Ordering::Relaxed);
+            return Err(e);
+        }
+    };
     let size = terminal.size()?;
     let mut app = App::new(Settings {
         zone: options.zone,

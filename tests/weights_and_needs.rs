@@ -160,7 +160,11 @@ fn the_projected_margin_meets_the_target_where_more_needed_says() {
             );
             let target = 0.05;
             let more = bounds::more_needed(method, &q, target).unwrap().unwrap();
-            let at = |k: u64| bounds::projected_margin(method, &q, n + k).unwrap().unwrap();
+            let at = |k: u64| {
+                bounds::projected_margin(method, &q, n + k)
+                    .unwrap()
+                    .unwrap()
+            };
             assert!(at(more) <= target * (1.0 + 1e-12), "{method} {s}/{n}");
             if more > 0 {
                 assert!(at(more - 1) > target, "{method} {s}/{n}: {more}");
