@@ -212,6 +212,11 @@ impl App {
         self.measure
     }
 
+    /// Where the reading of the file stands, by the last update.
+    pub fn feed_reading(&self) -> Option<&super::feed::Reading> {
+        self.feed.as_deref().map(|u| &u.reading)
+    }
+
     /// The notices kept, oldest first.
     pub fn notices(&self) -> impl Iterator<Item = &Notice> {
         self.notices.iter()

@@ -954,15 +954,31 @@ fn draw_trend(frame: &mut Frame, area: Rect, app: &App, s: &Snapshot, c: &CellVi
 }
 
 /// Every line of the problems page.
-fn problem_lines(app: &App) -> Vec<Line<'static>> {
+fn problem_lines(app: &App, width: usize) -> Vec<Line<'static>> {
     let t = &app.theme;
     let mut lines: Vec<Line> = Vec::new();
+    // A long entry continues on indented lines.
+    let entry = |lines: &mut Vec<Line<'static>>, lead: String, text: &str, style: Style| {
+        let indent = lead.chars().count();
+        let wrapped = report::wrap(text, width.saturating_sub(indent).max(20));
+        for (i, part) in wrapped.lines().enumerate() {
+            let lead = if i == 0 {
+                lead.clone()
+            } else {
+                " ".repeat(indent)
+            };
+            lines.push(Line::from(vec![
+                Span::raw(lead),
+                Span::styled(part.to_string(), style),
+            ]));
+        }
+    };
     let heading = |text: String| Line::from(Span::styled(text, t.heading));
     if let Some(update) = app.feed.as_deref() {
         match &update.reading {
             Reading::HeaderProblem(m) | Reading::Failed(m) => {
                 lines.push(heading("Reading the file".into()));
-                lines.push(Line::from(Span::styled(format!("  {m}"), t.warning)));
+                entry(&mut lines, "  ".into(), m, t.warning);
                 lines.push(Line::from(""));
             }
             Reading::WaitingForFile => {
@@ -992,12 +1008,12 @@ fn problem_lines(app: &App) -> Vec<Line<'static>> {
         listed(s.rejections.len(), s.rows_rejected)
     )));
     for r in &s.rejections {
-        lines.push(Line::from(format!(
-            "  line {:>8}  {:<15} {}",
-            r.line,
-            r.kind,
-            clean(&r.reason, 200)
-        )));
+        entry(
+            &mut lines,
+            format!("  line {:>8}  {:<15} ", r.line, r.kind),
+            &clean(&r.reason, 400),
+            Style::new(),
+        );
     }
     lines.push(Line::from(""));
     lines.push(heading(format!(
@@ -1047,11 +1063,12 @@ fn problem_lines(app: &App) -> Vec<Line<'static>> {
         lines.push(Line::from(""));
         lines.push(heading("Cell warnings".into()));
         for (c, w) in warnings {
-            lines.push(Line::from(format!(
-                "  {}: {}",
-                clean(&c.label, 40),
-                clean(w, 200)
-            )));
+            entry(
+                &mut lines,
+                format!("  {}: ", clean(&c.label, 40)),
+                &clean(w, 400),
+                Style::new(),
+            );
         }
     }
     lines.push(Line::from(""));
@@ -1060,11 +1077,12 @@ fn problem_lines(app: &App) -> Vec<Line<'static>> {
         app.notices.len()
     )));
     for n in app.notices.iter().rev() {
-        lines.push(Line::from(format!(
-            "  {}  {}",
-            moment(n.time, &app.zone),
-            clean(&n.text, 400)
-        )));
+        entry(
+            &mut lines,
+            format!("  {}  ", moment(n.time, &app.zone)),
+            &clean(&n.text, 400),
+            Style::new(),
+        );
     }
     lines
 }
@@ -1076,7 +1094,7 @@ fn draw_problems(frame: &mut Frame, area: Rect, app: &App, drawn: &mut Drawn) {
         .title(" problems: rows, ids, answers, cells and notices ");
     let inner = block.inner(area);
     frame.render_widget(block, area);
-    let lines = problem_lines(app);
+    let lines = problem_lines(app, inner.width as usize);
     drawn.problem_total = lines.len();
     drawn.problem_lines = inner.height as usize;
     let scroll = app
