@@ -158,6 +158,13 @@ fn the_dashboard_follows_appends_and_restores_the_terminal() {
 
     // q quits; the shell finds its terminal as it was.
     tmux.keys("q");
+    assert_restored(&tmux);
+}
+
+/// The dashboard has ended with exit code 0 and the shell's terminal is as it was:
+/// the dashboard's screen is gone (the alternate screen was left), line editing and
+/// echo are on.
+fn assert_restored(tmux: &Tmux) {
     let screen = tmux.wait_for("EXITED 0");
     assert!(
         !screen.contains("counted"),
@@ -232,17 +239,5 @@ fn sigterm_ends_the_dashboard_and_restores_the_terminal() {
         .status()
         .unwrap();
     assert!(killed.success());
-    let screen = tmux.wait_for("EXITED 0");
-    assert!(
-        !screen.contains("counted"),
-        "the dashboard is still on screen:\n{screen}"
-    );
-    let after: Vec<&str> = screen
-        .lines()
-        .skip_while(|l| !l.contains("EXITED"))
-        .collect();
-    assert!(
-        after.contains(&"icanon") && after.contains(&"echo"),
-        "{screen}"
-    );
+    assert_restored(&tmux);
 }

@@ -217,13 +217,7 @@ impl Feed {
             }
             Err(e) => {
                 let message = e.to_string();
-                if self.last_error.as_deref() != Some(message.as_str()) {
-                    notices.push(Notice {
-                        time: now,
-                        text: report::clean(&message, 400),
-                    });
-                    self.last_error = Some(message.clone());
-                }
+                notices.extend(once(&mut self.last_error, &message, now));
                 let reading = Reading::Failed(report::clean(&message, 400));
                 let changed = reading != self.reading;
                 self.reading = reading;
@@ -304,16 +298,7 @@ impl Feed {
         if let (Some(log), Some(events)) = (&mut self.log, events) {
             match log.record(events, &snapshot) {
                 Ok(()) => self.last_log_error = None,
-                Err(e) => {
-                    let message = e.to_string();
-                    if self.last_log_error.as_deref() != Some(message.as_str()) {
-                        notices.push(Notice {
-                            time: now,
-                            text: report::clean(&message, 400),
-                        });
-                        self.last_log_error = Some(message);
-                    }
-                }
+                Err(e) => notices.extend(once(&mut self.last_log_error, &e.to_string(), now)),
             }
         }
         for cell in &snapshot.cells {
@@ -368,6 +353,19 @@ impl Feed {
             last_reset: self.last_reset,
         }
     }
+}
+
+/// A notice of `message` unless it is the one `last` holds (a failure that repeats at
+/// every look is told once); `last` then holds it.
+fn once(last: &mut Option<String>, message: &str, time: Timestamp) -> Option<Notice> {
+    if last.as_deref() == Some(message) {
+        return None;
+    }
+    *last = Some(message.to_string());
+    Some(Notice {
+        time,
+        text: report::clean(message, 400),
+    })
 }
 
 /// Add the cell's deciding margin to its history when its responses changed.
