@@ -17,6 +17,7 @@ pub mod assess;
 pub mod batch;
 pub mod bounds;
 pub mod clock;
+pub mod dashboard;
 pub mod event_log;
 pub mod follow;
 pub mod hints;

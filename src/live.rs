@@ -18,7 +18,7 @@ use crate::tally::{Counter, Tally};
 
 /// The most follower polls one [`Live::poll`] makes (each reads at most
 /// [`crate::follow::READ_LIMIT`] bytes).
-pub const POLLS_AT_ONCE: usize = 16;
+pub const POLLS_AT_ONCE: usize = 64;
 
 /// Columns added to and removed from the header, by name, in header order.
 #[derive(Clone, Debug, PartialEq, Eq)]
@@ -82,7 +82,7 @@ pub enum LiveEvent {
 /// # Progress of a long read
 ///
 /// [`Live::poll`] does a bounded amount of work: at most [`POLLS_AT_ONCE`] pieces of
-/// [`crate::follow::READ_LIMIT`] bytes (16 MiB). When it returns with
+/// [`crate::follow::READ_LIMIT`] bytes (64 MiB). When it returns with
 /// [`Live::caught_up`] false there is more to read: a caller showing progress reads
 /// [`Live::bytes_read`] against [`Live::file_size`] (a rate from two such readings
 /// and the time between them) and polls again. The records are counted as they are
@@ -159,6 +159,12 @@ impl Live {
         self.state.problem.as_deref()
     }
 
+    /// The byte offset up to which the responses file has been read (for a gauge of
+    /// the first read; compare with the file's size).
+    pub fn bytes_read(&self) -> u64 {
+        self.follower.offset()
+    }
+
     /// Whether the file is missing.
     pub fn waiting(&self) -> bool {
         self.follower.waiting()
@@ -173,11 +179,6 @@ impl Live {
     /// false, poll again at once.
     pub fn caught_up(&self) -> bool {
         self.follower.caught_up()
-    }
-
-    /// Bytes of the file read so far (from its start; after a reset, of the new read).
-    pub fn bytes_read(&self) -> u64 {
-        self.follower.offset()
     }
 
     /// The file's size when it was last looked at (`None` before it was found).

@@ -1,17 +1,18 @@
 //! The `closeout` command: argument parsing and exit codes; the library does the work.
 
-use std::io::Write;
+use std::io::{IsTerminal, Write};
 use std::path::PathBuf;
 use std::process::ExitCode;
 
 use clap::{Parser, Subcommand};
 
 use closeout::bounds::{self, Level, Query, SizeQuery};
+use closeout::clock::Clock;
 use closeout::event_log::EventLog;
 use closeout::hints::{self, Hint, Hints};
 use closeout::live::Live;
 use closeout::study::Study;
-use closeout::{assess, batch, report};
+use closeout::{assess, batch, dashboard, report};
 
 /// Follow survey fieldwork: margins of error per quota cell and when collection can close.
 #[derive(Parser)]
@@ -82,6 +83,15 @@ enum Command {
         until_ready: bool,
         /// With --follow: look at the file every second instead of watching its folder.
         #[arg(long, requires = "follow")]
+        poll: bool,
+    },
+    /// The live dashboard: every cell's margin, needs and ETA, kept current as responses
+    /// arrive. Without a terminal it prints what `status --follow` prints.
+    Watch {
+        /// The study file (TOML).
+        study: PathBuf,
+        /// Look at the file every second instead of watching its folder.
+        #[arg(long)]
         poll: bool,
     },
 }
@@ -158,6 +168,42 @@ fn run(cli: Cli) -> Result<Done, Usage> {
             };
             Ok(Done { text, code: 0 })
         }
+        Command::Watch { study, poll } => {
+            let study = Study::load(&study).map_err(|e| Usage(e.to_string()))?;
+            let log = open_log(&study)?;
+            if !std::io::stdout().is_terminal() {
+                return Ok(follow_status(study, log, false, false, poll, false));
+            }
+            let options = dashboard::Options {
+                clock: Clock::System,
+                poll_only: poll,
+                zone: jiff::tz::TimeZone::system(),
+                theme: dashboard::Theme::from_env(),
+            };
+            let on_stop = |stop: std::sync::mpsc::Sender<dashboard::Event>| {
+                // SIGTERM and SIGHUP end the dashboard as q does, restoring the terminal.
+                if let Err(e) = ctrlc::set_handler(move || {
+                    let _ = stop.send(dashboard::Event::Stop);
+                }) {
+                    eprintln!(
+                        "closeout: cannot catch signals ({e}); a kill will leave the terminal as it is"
+                    );
+                }
+            };
+            match dashboard::run(study, log, options, on_stop) {
+                Ok(()) => Ok(Done {
+                    text: String::new(),
+                    code: 0,
+                }),
+                Err(e) => {
+                    eprintln!("closeout: the dashboard cannot use this terminal: {e}");
+                    Ok(Done {
+                        text: String::new(),
+                        code: 1,
+                    })
+                }
+            }
+        }
         Command::Status {
             study,
             format,
@@ -179,13 +225,7 @@ fn run(cli: Cli) -> Result<Done, Usage> {
                     }
                 };
                 let study = Study::load(&study).map_err(|e| Usage(e.to_string()))?;
-                let log = match &study.log {
-                    Some(path) => Some(
-                        EventLog::open(path, &study.source.file, &study.study_path)
-                            .map_err(|e| Usage(e.to_string()))?,
-                    ),
-                    None => None,
-                };
+                let log = open_log(&study)?;
                 return Ok(follow_status(
                     study,
                     log,
@@ -221,6 +261,16 @@ fn run(cli: Cli) -> Result<Done, Usage> {
     }
 }
 
+/// The study's event log, opened for appending, when it names one.
+fn open_log(study: &Study) -> Result<Option<EventLog>, Usage> {
+    match &study.log {
+        Some(path) => EventLog::open(path, &study.source.file, &study.study_path)
+            .map(Some)
+            .map_err(|e| Usage(e.to_string())),
+        None => Ok(None),
+    }
+}
+
 /// Print lines, flushing. `Err` carries the exit code when standard output is gone:
 /// 0 for a closed pipe (not an error), 1 for another failed write.
 fn print(lines: &[String], err: &[String]) -> Result<(), u8> {
@@ -251,7 +301,7 @@ fn follow_status(
     poll: bool,
     exit_code: bool,
 ) -> Done {
-    let hints = Hints::start(&study.source.file, poll, hints::TICK);
+    let hints: Hints = Hints::start(&study.source.file, poll, hints::TICK);
     if let Some(e) = &hints.watch_error {
         eprintln!(
             "closeout: cannot watch the folder of the responses file ({e}): looking every second instead"

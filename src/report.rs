@@ -8,7 +8,7 @@ use crate::bounds::{BoundRow, Interval, Query, RequiredSize, SizeQuery, Unavaila
 mod follow;
 mod status;
 
-pub use follow::{FollowOutput, Lines, summary};
+pub use follow::{FollowOutput, Lines, notice, summary};
 pub use status::{neutralise, status_csv, status_json, status_text, verdict, when};
 
 /// The cautions in one line, for compact outputs.
@@ -59,7 +59,9 @@ pub fn confidence_label(c: f64, delta: f64) -> String {
     }
 }
 
-fn wrap(text: &str, width: usize) -> String {
+/// Words of `text` joined into lines of at most `width` characters (a longer word
+/// stands alone on its line).
+pub fn wrap(text: &str, width: usize) -> String {
     let mut out = String::new();
     let mut line = 0;
     for word in text.split_whitespace() {

@@ -12,7 +12,7 @@ use std::io::Write;
 use std::path::{Path, PathBuf};
 
 use closeout::batch;
-use closeout::follow::{ResetReason, Warning};
+use closeout::follow::{Follower, ResetReason, Warning};
 use closeout::live::{HeaderChange, Live, LiveEvent};
 use closeout::study::Study;
 use closeout::tally::{Tally, tally_csv};
@@ -906,7 +906,9 @@ fn the_one_shot_read_and_the_follower_agree_on_awkward_bytes() {
 fn a_long_first_read_shows_its_progress_between_polls() {
     let f = fixture();
     let mut text = b"id,region,q1,t\n".to_vec();
-    let piece = closeout::follow::READ_LIMIT * closeout::live::POLLS_AT_ONCE as u64;
+    // 4 KiB per follower poll, so a Live::poll reads 256 KiB.
+    let read_limit = 4096;
+    let piece = read_limit * closeout::live::POLLS_AT_ONCE as u64;
     let mut i = 0u64;
     while (text.len() as u64) < piece * 2 + 1000 {
         // Every 97th id repeats an earlier one; times run over several hours.
@@ -916,7 +918,7 @@ fn a_long_first_read_shows_its_progress_between_polls() {
         text.extend_from_slice(
             format!(
                 "r{id},{region},{answer},2026-05-01T{:02}:{:02}:00Z\n",
-                8 + i / 120_000 % 12,
+                8 + i / 2_000 % 12,
                 i % 60
             )
             .as_bytes(),
@@ -924,7 +926,8 @@ fn a_long_first_read_shows_its_progress_between_polls() {
         i += 1;
     }
     append(&f.csv, &text);
-    let mut live = Live::new(f.study.clone());
+    let follower = Follower::new(&f.csv, b',').with_read_limit(read_limit);
+    let mut live = Live::with_follower(f.study.clone(), follower);
     let mut seen = Vec::new();
     loop {
         poll(&mut live);
