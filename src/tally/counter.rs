@@ -409,10 +409,13 @@ fn pack(bytes: &[u8]) -> Option<u128> {
     if bytes.len() > 15 {
         return None;
     }
-    let mut word = [0u8; 16];
-    word[..bytes.len()].copy_from_slice(bytes);
-    word[15] = bytes.len() as u8;
-    Some(u128::from_le_bytes(word))
+    // Shifted in byte by byte: copying into an array and reading it back as one
+    // number stalls the processor (a wide load right after narrow stores).
+    let mut word = (bytes.len() as u128) << 120;
+    for (i, &b) in bytes.iter().enumerate() {
+        word |= u128::from(b) << (8 * i);
+    }
+    Some(word)
 }
 
 /// The weights read so far, by their trimmed text (a weight is a pure function of its
