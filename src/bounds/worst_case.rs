@@ -57,21 +57,11 @@ impl Pivot {
         below + self.cut.map_or(0.0, |c| ln_binom_upper(c, n, p, q).exp())
     }
 
-    /// A cheap upper bound on the value (Chernoff's bound on each tail).
-    fn chernoff_bound(&self) -> f64 {
-        let nf = self.n as f64;
-        let tail = |count: u64| (-nf * kl(count as f64 / nf, self.p)).exp();
-        tail(self.k) + self.cut.map_or(0.0, tail)
-    }
-
-    /// Whether the value exceeds δ, trying the cheap bounds first: Chernoff's, then
-    /// each tail summed outward term by term with the rest bounded geometrically,
+    /// Whether the value exceeds δ: each tail summed outward term by term with the
+    /// rest bounded geometrically,
     /// until the sum is clearly above or clearly below δ (by a relative 10⁻¹²); only
     /// a value that close to δ is computed in full.
     fn exceeds(&self, delta: f64) -> bool {
-        if self.chernoff_bound() <= delta {
-            return false;
-        }
         match self.bracket(delta) {
             Some(decided) => decided,
             None => self.value() > delta,
@@ -173,19 +163,61 @@ fn violator(n: u64, eps: f64, delta: f64) -> Option<u64> {
     let nf = n as f64;
     let centre = (nf * (0.5 - eps)).round().clamp(0.0, nf) as u64;
     let check = |k: u64| Pivot::new(n, k, eps).is_some_and(|pivot| pivot.exceeds(delta));
+    // Whether every pivot from `k` outward (away from p = ½) is at most δ: see
+    // `outward_bound`. Looked at every 16 pivots.
+    let beyond = |k: u64, step: u64| {
+        step.is_multiple_of(16) && outward_bound(n, k, eps).is_some_and(|b| b <= delta * (1.0 - 1e-9))
+    };
+    let (mut left_done, mut right_done) = (false, false);
     for step in 0..=n {
         let right = centre + step;
-        if right <= n && check(right) {
-            return Some(right);
+        if right > n {
+            right_done = true;
         }
-        if step > 0 && step <= centre && check(centre - step) {
-            return Some(centre - step);
+        if !right_done {
+            if check(right) {
+                return Some(right);
+            }
+            right_done = beyond(right, step);
         }
-        if right > n && step > centre {
+        if step > centre {
+            left_done = true;
+        }
+        if step > 0 && !left_done {
+            let left = centre - step;
+            if check(left) {
+                return Some(left);
+            }
+            left_done = beyond(left, step);
+        }
+        if left_done && right_done {
             break;
         }
     }
     None
+}
+
+/// A bound on the value of pivot `k` and of every pivot further from p = ½, when
+/// the pivot lies wholly on one side of ½ (`p + ε ≤ ½` or `p − ε ≥ ½`, with
+/// `p = k/n + ε`): Chernoff's bound on each tail with the continuous thresholds,
+/// `exp(−n KL(p − ε ‖ p)) + exp(−n KL(p + ε ‖ p))`. Writing
+/// `KL(a ‖ b) = ∫ₐᵇ (t − a)/(t(1 − t)) dt` shows both divergences grow as p moves
+/// away from ½ while `t(1 − t)` falls over the whole range of t, so the bound at `k`
+/// holds for every pivot beyond it. `None` when the pivot straddles ½.
+fn outward_bound(n: u64, k: u64, eps: f64) -> Option<f64> {
+    let nf = n as f64;
+    let p = k as f64 / nf + eps;
+    if !(p + eps <= 0.5 || p - eps >= 0.5) || p >= 1.0 {
+        return None;
+    }
+    // p − ε = k/n ≥ 0.
+    let below = (-nf * kl((p - eps).max(0.0), p)).exp();
+    let above = if p + eps < 1.0 {
+        (-nf * kl(p + eps, p)).exp()
+    } else {
+        0.0
+    };
+    Some(below + above)
 }
 
 /// Whether the margin `eps` holds at `n` for every p: `sup_p P_p(|X/n − p| > eps) ≤ δ`.
