@@ -5,6 +5,7 @@
 #
 #   bash benches/batch.sh                 # 1 M and 10 M rows, 5 runs each
 #   ROWS="1000000" RUNS=3 bash benches/batch.sh
+#   BIN=/path/to/other/closeout bash benches/batch.sh   # time another build
 #
 # Needs GNU time (/usr/bin/time; Debian package `time`). The files (invented data,
 # about 86 bytes a row, 24 cells, 0.1 % malformed rows and 0.1 % duplicate ids) are
@@ -18,8 +19,10 @@ DATA=${DATA:-target/bench-data}
 TIME=/usr/bin/time
 [ -x "$TIME" ] || { echo "needs GNU time: apt-get install time" >&2; exit 2; }
 
-cargo build --release --locked --quiet
-BIN=target/release/closeout
+if [ -z "${BIN:-}" ]; then
+  cargo build --release --locked --quiet
+  BIN=target/release/closeout
+fi
 # shellcheck disable=SC2086
 cargo bench --quiet --bench write_responses -- "$DATA" $ROWS >/dev/null
 

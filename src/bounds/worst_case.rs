@@ -166,7 +166,8 @@ fn violator(n: u64, eps: f64, delta: f64) -> Option<u64> {
     // Whether every pivot from `k` outward (away from p = ½) is at most δ: see
     // `outward_bound`. Looked at every 16 pivots.
     let beyond = |k: u64, step: u64| {
-        step.is_multiple_of(16) && outward_bound(n, k, eps).is_some_and(|b| b <= delta * (1.0 - 1e-9))
+        step.is_multiple_of(16)
+            && outward_bound(n, k, eps).is_some_and(|b| b <= delta * (1.0 - 1e-9))
     };
     let (mut left_done, mut right_done) = (false, false);
     for step in 0..=n {

@@ -74,9 +74,12 @@ pub struct Counter {
     used: Vec<usize>,
     staged: Vec<Staged>,
     /// Raw cell values (joined) → (cell, spelling).
-    by_raw: HashMap<Vec<u8>, (usize, usize), BuildHasherDefault<Mix>>,
-    /// Every raw spelling of a cell seen, trimmed: the label if it is the first counted.
+    by_raw: HashMap<Vec<u8>, (usize, Option<usize>), BuildHasherDefault<Mix>>,
+    /// The raw spellings of cells in `by_raw`, trimmed: the label if it is the first
+    /// counted in its cell.
     spellings: Vec<Vec<String>>,
+    /// The spelling of the record being read, when `by_raw` is full.
+    unlisted: Vec<String>,
     waiting_slots: Vec<Waiting>,
     waiting: usize,
     by_key: HashMap<CellKey, usize>,
@@ -119,6 +122,7 @@ impl Counter {
             staged: Vec::new(),
             by_raw: HashMap::default(),
             spellings: Vec::new(),
+            unlisted: Vec::new(),
             waiting_slots: vec![Waiting::default(); BATCH],
             waiting: 0,
             by_key: HashMap::new(),
@@ -237,13 +241,18 @@ impl Counter {
                         self.staged.len() - 1
                     }
                 };
-                self.spellings
-                    .push(raw.iter().map(|v| v.to_string()).collect());
-                let found = (cell, self.spellings.len() - 1);
+                let spelling: Vec<String> = raw.iter().map(|v| v.to_string()).collect();
                 if self.by_raw.len() < CELL_CACHE {
+                    self.spellings.push(spelling);
+                    let found = (cell, Some(self.spellings.len() - 1));
                     self.by_raw.insert(self.raw_key.clone(), found);
+                    found
+                } else {
+                    // The cache is full: this record carries its own spelling, so that
+                    // nothing kept grows with the records.
+                    self.unlisted = spelling;
+                    (cell, None)
                 }
-                found
             }
         };
         let Some(w) = self.waiting_slots.get_mut(self.waiting) else {
@@ -252,6 +261,10 @@ impl Counter {
         w.line = line;
         w.cell = cell;
         w.spelling = spelling;
+        w.own_spelling = match spelling {
+            Some(_) => Vec::new(),
+            None => std::mem::take(&mut self.unlisted),
+        };
         w.weight = weight;
         w.weight_index = weight_index;
         w.time = time;
@@ -318,7 +331,10 @@ impl Counter {
                 // The cell's first counted response names it (if the tally has not).
                 staged.cell.label = match tally.cells.get(&staged.key) {
                     Some(known) => known.label.clone(),
-                    None => self.spellings.get(w.spelling).cloned().unwrap_or_default(),
+                    None => match w.spelling {
+                        Some(i) => self.spellings.get(i).cloned().unwrap_or_default(),
+                        None => w.own_spelling.clone(),
+                    },
                 };
             }
             staged.cell.responses += 1;
@@ -372,7 +388,10 @@ struct Waiting {
     id: Option<u128>,
     id_text: Vec<u8>,
     cell: usize,
-    spelling: usize,
+    /// The raw spelling of its cell among `Counter::spellings`, or `None` with the
+    /// spelling in `own_spelling` (when the cache of spellings is full).
+    spelling: Option<usize>,
+    own_spelling: Vec<String>,
     weight: f64,
     weight_index: Option<usize>,
     time: Option<Timestamp>,
@@ -537,6 +556,51 @@ mod tests {
     use super::*;
     use rand::{Rng, SeedableRng};
     use rand_chacha::ChaCha8Rng;
+
+    /// More raw spellings of cells than the cache holds (the later ones carried by
+    /// their records), with the first record of some cells a duplicate: the same
+    /// tally, labels included, as record by record.
+    #[test]
+    fn past_the_cache_of_spellings_the_tally_is_the_same() {
+        use crate::rows::MeasureRule;
+        let layout = Layout {
+            width: 3,
+            cells: vec![0],
+            measures: vec![MeasureRule {
+                column: 1,
+                yes: vec!["y".into()],
+                no: vec!["n".into()],
+            }],
+            id: Some(2),
+            weight: None,
+            time: None,
+        };
+        let mut text = b"cell,q,id\n".to_vec();
+        for i in 0..3 * CELL_CACHE {
+            let cell = i % (CELL_CACHE + 500);
+            let spelling = match i % 3 {
+                0 => format!("c{cell}"),
+                1 => format!("C{cell}"),
+                _ => format!(" c{cell} "),
+            };
+            // Every 7th record repeats the id of the record before it.
+            let id = if i % 7 == 6 { i - 1 } else { i };
+            let answer = ["y", "n", "", "maybe"][i % 4];
+            text.extend_from_slice(format!("{spelling},{answer},r{id}\n").as_bytes());
+        }
+        let (_, fast) =
+            super::super::tally_csv(|_| Ok::<_, ()>(layout.clone()), &text[..], b',').unwrap();
+        let mut slow = Tally::new(1);
+        let mut reader = csv::ReaderBuilder::new().from_reader(&text[..]);
+        for (i, record) in reader.byte_records().enumerate() {
+            slow.add_record(&layout, &record.unwrap(), i as u64 + 2);
+        }
+        assert!(fast.cells.len() > CELL_CACHE);
+        assert_eq!(fast, slow);
+        for (a, b) in fast.cells.values().zip(slow.cells.values()) {
+            assert_eq!(a.label, b.label);
+        }
+    }
 
     #[test]
     fn times_in_the_usual_form_equal_jiffs_reading() {
