@@ -7,11 +7,11 @@ use std::process::ExitCode;
 use clap::{Parser, Subcommand};
 
 use closeout::bounds::{self, Level, Query, SizeQuery};
+use closeout::clock::Clock;
 use closeout::event_log::EventLog;
 use closeout::hints::{self, Hint, Hints};
-use closeout::live::Live;
 use closeout::study::Study;
-use closeout::{assess, batch, report};
+use closeout::{assess, batch, headless, report};
 
 /// Follow survey fieldwork: margins of error per quota cell and when collection can close.
 #[derive(Parser)]
@@ -186,14 +186,26 @@ fn run(cli: Cli) -> Result<Done, Usage> {
                     ),
                     None => None,
                 };
-                return Ok(follow_status(
-                    study,
-                    log,
+                let options = headless::FollowOptions {
                     json,
                     until_ready,
-                    poll,
                     exit_code,
-                ));
+                };
+                let hints = Hints::start(&study.source.file, poll, hints::TICK);
+                stop_on_ctrl_c(&hints);
+                let code = headless::follow(
+                    study,
+                    log,
+                    options,
+                    &Clock::System,
+                    &hints,
+                    &mut std::io::stdout(),
+                    &mut std::io::stderr(),
+                );
+                return Ok(Done {
+                    text: String::new(),
+                    code,
+                });
             }
             let as_of = match as_of {
                 Some(text) => text.parse::<jiff::Timestamp>().map_err(|e| {
@@ -221,118 +233,13 @@ fn run(cli: Cli) -> Result<Done, Usage> {
     }
 }
 
-/// Print lines, flushing. `Err` carries the exit code when standard output is gone:
-/// 0 for a closed pipe (not an error), 1 for another failed write.
-fn print(lines: &[String], err: &[String]) -> Result<(), u8> {
-    for line in err {
-        eprintln!("{line}");
-    }
-    let mut out = std::io::stdout().lock();
-    let written = lines
-        .iter()
-        .try_for_each(|line| writeln!(out, "{line}"))
-        .and_then(|()| out.flush());
-    match written {
-        Ok(()) => Ok(()),
-        Err(e) if e.kind() == std::io::ErrorKind::BrokenPipe => Err(0),
-        Err(e) => {
-            eprintln!("closeout: cannot write the output: {e}");
-            Err(1)
-        }
-    }
-}
-
-/// `status --follow`: one loop over one channel of hints; the loop owns all state.
-fn follow_status(
-    study: Study,
-    mut log: Option<EventLog>,
-    json: bool,
-    until_ready: bool,
-    poll: bool,
-    exit_code: bool,
-) -> Done {
-    let hints = Hints::start(&study.source.file, poll, hints::TICK);
-    if let Some(e) = &hints.watch_error {
-        eprintln!(
-            "closeout: cannot watch the folder of the responses file ({e}): looking every second instead"
-        );
-    }
+/// Ctrl-C and SIGTERM send a stop on the hints' channel.
+fn stop_on_ctrl_c(hints: &Hints) {
     let stop = hints.sender();
     if let Err(e) = ctrlc::set_handler(move || {
         let _ = stop.send(Hint::Stop);
     }) {
         eprintln!("closeout: cannot catch Ctrl-C ({e}); it will end the program at once");
-    }
-    let mut live = Live::new(study);
-    let mut output = report::FollowOutput::new(json);
-    let mut last_error: Option<String> = None;
-    let mut last_log_error: Option<String> = None;
-    let mut snapshot = assess::assess(live.study(), live.tally(), jiff::Timestamp::now());
-    let mut hint = Some(Hint::File);
-    loop {
-        match hint {
-            None | Some(Hint::Stop) => {
-                let text = output.last_state(&snapshot);
-                let code = match print(&[text], &[]) {
-                    Ok(()) => u8::from(exit_code && !snapshot.ready_to_close),
-                    Err(code) => code,
-                };
-                return Done {
-                    text: String::new(),
-                    code,
-                };
-            }
-            Some(Hint::File | Hint::Tick) => {}
-        }
-        // Fold a burst of hints into one look; a stop waiting in it still counts.
-        let mut stopping = false;
-        while let Some(h) = hints.try_next() {
-            stopping |= h == Hint::Stop;
-        }
-        let events = match live.poll() {
-            Ok(events) => {
-                last_error = None;
-                events
-            }
-            Err(e) => {
-                let message = format!("closeout: {e}");
-                if last_error.as_deref() != Some(message.as_str()) {
-                    eprintln!("{message}");
-                    last_error = Some(message);
-                }
-                Vec::new()
-            }
-        };
-        snapshot = assess::assess(live.study(), live.tally(), jiff::Timestamp::now());
-        if let Some(l) = &mut log
-            && let Err(e) = l.record(&events, &snapshot)
-        {
-            let message = format!("closeout: {e}");
-            if last_log_error.as_deref() != Some(message.as_str()) {
-                eprintln!("{message}");
-                last_log_error = Some(message);
-            }
-        }
-        let lines = output.update(&events, &snapshot);
-        if let Err(code) = print(&lines.out, &lines.err) {
-            return Done {
-                text: String::new(),
-                code,
-            };
-        }
-        if until_ready && snapshot.ready_to_close {
-            return Done {
-                text: String::new(),
-                code: 0,
-            };
-        }
-        hint = if stopping {
-            Some(Hint::Stop)
-        } else if !live.caught_up() {
-            Some(Hint::File)
-        } else {
-            hints.next()
-        };
     }
 }
 
