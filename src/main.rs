@@ -11,7 +11,7 @@ use closeout::clock::Clock;
 use closeout::event_log::EventLog;
 use closeout::hints::{self, Hint, Hints};
 use closeout::study::Study;
-use closeout::{assess, batch, headless, report};
+use closeout::{assess, batch, demo, headless, report};
 
 /// Follow survey fieldwork: margins of error per quota cell and when collection can close.
 #[derive(Parser)]
@@ -84,6 +84,29 @@ enum Command {
         #[arg(long, requires = "follow")]
         poll: bool,
     },
+    /// Simulated fieldwork of an invented study, to watch the whole job work.
+    Demo {
+        /// Seed of the simulation: the same seed plays the same fieldwork.
+        #[arg(long, default_value_t = demo::DEFAULT_SEED)]
+        seed: u64,
+        /// Simulated seconds per real second.
+        #[arg(long, default_value_t = demo::DEFAULT_SPEED)]
+        speed: f64,
+        /// Folder for the demo's files: new or empty (default: a new temporary folder).
+        #[arg(long)]
+        dir: Option<PathBuf>,
+        /// No waiting and no terminal: every file action in order, printing the
+        /// verdict changes at their simulated moments.
+        #[arg(long, conflicts_with_all = ["write", "speed"])]
+        headless: bool,
+        /// With --headless: stop before the first action after this simulated moment
+        /// (RFC 3339), or this long after the start (such as 30h).
+        #[arg(long, requires = "headless")]
+        until: Option<String>,
+        /// Only write the study and N responses into --dir, fast (for benchmarks).
+        #[arg(long, value_name = "N", requires = "dir", conflicts_with = "speed")]
+        write: Option<u64>,
+    },
 }
 
 #[derive(Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
@@ -102,6 +125,95 @@ struct Done {
 /// An error in what the user asked for or gave us (arguments, the study file, the
 /// responses file): exit code 2.
 struct Usage(String);
+
+/// The moment `--until` names: an RFC 3339 time, or a duration after `start`.
+fn until_moment(text: &str, start: jiff::Timestamp) -> Result<jiff::Timestamp, Usage> {
+    if let Ok(t) = text.parse::<jiff::Timestamp>() {
+        return Ok(t);
+    }
+    text.parse::<jiff::SignedDuration>()
+        .ok()
+        .and_then(|d| start.checked_add(d).ok())
+        .ok_or_else(|| {
+            Usage(format!(
+                "--until '{text}' is neither an RFC 3339 time such as 2026-03-03T12:00:00Z nor a duration such as 30h"
+            ))
+        })
+}
+
+/// `closeout demo`.
+fn run_demo(
+    seed: u64,
+    speed: f64,
+    dir: Option<PathBuf>,
+    headless: bool,
+    until: Option<String>,
+    write: Option<u64>,
+) -> Result<Done, Usage> {
+    let usage = |e: demo::DemoError| Usage(e.to_string());
+    if let Some(rows) = write {
+        let dir = demo::fresh_dir(dir.as_deref()).map_err(usage)?;
+        let began = std::time::Instant::now();
+        let w = demo::bulk::write(&dir, rows, seed).map_err(usage)?;
+        let text = format!(
+            "wrote {} rows ({} bytes, about {} a row; {} malformed, {} repeated ids) of INVENTED data to {} in {:.1} s\nstudy: {}\n",
+            w.rows,
+            w.bytes,
+            w.bytes / w.rows.max(1),
+            w.malformed,
+            w.duplicates,
+            dir.join(demo::plan::RESPONSES).display(),
+            began.elapsed().as_secs_f64(),
+            dir.join("study.toml").display()
+        );
+        return Ok(Done { text, code: 0 });
+    }
+    if !(speed.is_finite() && speed > 0.0) {
+        return Err(Usage(format!(
+            "--speed '{speed}' must be a number above 0 (simulated seconds per real second)"
+        )));
+    }
+    let plan = demo::plan(seed).map_err(|e| Usage(e.to_string()))?;
+    let until = match until {
+        Some(text) => Some(until_moment(&text, plan.start)?),
+        None => None,
+    };
+    let dir = demo::fresh_dir(dir.as_deref()).map_err(usage)?;
+    let demo = demo::prepare(&dir, plan).map_err(usage)?;
+    let mut out = std::io::stdout();
+    let intro = demo.introduction(if headless { None } else { Some(speed) });
+    let code = if headless {
+        let printed = headless::write_lines(&intro, &[], &mut out, &mut std::io::stderr())
+            .and_then(|()| match demo::run_headless(&demo, until, &mut out) {
+                Ok(_) => Ok(()),
+                Err(demo::DemoError::Output(e)) if e.kind() == std::io::ErrorKind::BrokenPipe => {
+                    Err(0)
+                }
+                Err(demo::DemoError::Output(e)) => {
+                    eprintln!("closeout: cannot write the output: {e}");
+                    Err(1)
+                }
+                Err(e) => {
+                    eprintln!("closeout: {e}");
+                    Err(2)
+                }
+            });
+        printed.err().unwrap_or(0)
+    } else {
+        match headless::write_lines(&intro, &[], &mut out, &mut std::io::stderr()) {
+            Ok(()) => {
+                let hints = Hints::start(&demo.dir.join(demo::plan::RESPONSES), false, hints::TICK);
+                stop_on_ctrl_c(&hints);
+                demo::play(&demo, speed, &hints, &mut out, &mut std::io::stderr())
+            }
+            Err(code) => code,
+        }
+    };
+    Ok(Done {
+        text: String::new(),
+        code,
+    })
+}
 
 fn run(cli: Cli) -> Result<Done, Usage> {
     let usage = |e: bounds::BoundsError| Usage(e.to_string());
@@ -158,6 +270,14 @@ fn run(cli: Cli) -> Result<Done, Usage> {
             };
             Ok(Done { text, code: 0 })
         }
+        Command::Demo {
+            seed,
+            speed,
+            dir,
+            headless,
+            until,
+            write,
+        } => run_demo(seed, speed, dir, headless, until, write),
         Command::Status {
             study,
             format,
