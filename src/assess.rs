@@ -162,28 +162,28 @@ struct Decision {
     weighted: bool,
 }
 
-fn measure_view(name: &str, tally: &MeasureTally, d: &Decision) -> MeasureView {
-    let Decision {
-        level,
-        target,
-        decide_by,
-        tune_for,
-        population,
-        weighted,
-    } = *d;
-    let built = Query::new(tally.successes, tally.n, level)
-        .and_then(|q| q.with_tune_for(tune_for))
-        .and_then(|q| match population {
+/// The margin question for one measure's tally under a decision.
+fn query(tally: &MeasureTally, d: &Decision) -> Result<Query, bounds::BoundsError> {
+    Query::new(tally.successes, tally.n, d.level)
+        .and_then(|q| q.with_tune_for(d.tune_for))
+        .and_then(|q| match d.population {
             Some(total) if total >= tally.n => q.with_population(total),
             _ => Ok(q),
         })
         .and_then(|q| {
-            if weighted && tally.n > 0 {
+            if d.weighted && tally.n > 0 {
                 q.with_weights(tally.weights)
             } else {
                 Ok(q)
             }
-        });
+        })
+}
+
+fn measure_view(name: &str, tally: &MeasureTally, d: &Decision) -> MeasureView {
+    let Decision {
+        target, decide_by, ..
+    } = *d;
+    let built = query(tally, d);
     let (bounds, margin, needed, estimate, effective_n) = match built {
         Ok(q) => {
             let rows = bounds::intervals(&q);
@@ -244,6 +244,12 @@ struct CellInput<'a> {
 /// The verdict for `study` given its `tally`, as of `as_of` (the moment rates and
 /// ETAs refer to).
 pub fn assess(study: &Study, tally: &Tally, as_of: Timestamp) -> Snapshot {
+    assess_by(study, tally, as_of, study.target.decide_by)
+}
+
+/// The verdict as it would be if `decide_by` decided instead of the study's method
+/// (a preview: the study itself is unchanged; everything else is as in [`assess`]).
+pub fn assess_by(study: &Study, tally: &Tally, as_of: Timestamp, decide_by: Method) -> Snapshot {
     let measure_count = study.measures.len();
     let empty = CellTally::new(Vec::new(), measure_count);
     // Planned cells: the quotas, or without quotas every observed cell.
@@ -295,7 +301,6 @@ pub fn assess(study: &Study, tally: &Tally, as_of: Timestamp) -> Snapshot {
     let planned_count = inputs.iter().filter(|c| c.planned).count();
     let level = study.decision_level(planned_count);
     let target = study.target.margin;
-    let decide_by = study.target.decide_by;
     let weighted = study.source.weight.is_some();
     let study_first = tally
         .cells
@@ -469,4 +474,75 @@ pub fn assess(study: &Study, tally: &Tally, as_of: Timestamp) -> Snapshot {
         unexpected,
         cautions: CAUTIONS,
     }
+}
+
+/// The cell's deciding margin (its widest measure's) at larger numbers of responses,
+/// if every measure's proportion, and the share of responses that answer it, held as
+/// they are: what "needed" assumes, drawn as a curve. `points` response counts from
+/// the cell's responses now up to `upto`, each with its margin; empty when the cell
+/// has no responses yet or is not in `snapshot`. Uses the snapshot's deciding method
+/// (so a preview's curve is the previewed method's).
+pub fn projection(
+    study: &Study,
+    tally: &Tally,
+    snapshot: &Snapshot,
+    label: &str,
+    upto: u64,
+    points: usize,
+) -> Vec<(u64, f64)> {
+    let Some(view) = snapshot.cells.iter().find(|c| c.label == label) else {
+        return Vec::new();
+    };
+    let Some(cell) = tally.cells.get(&tally_key(study, view)) else {
+        return Vec::new();
+    };
+    let now = cell.responses;
+    if now == 0 || points == 0 {
+        return Vec::new();
+    }
+    let d = Decision {
+        level: study.decision_level(snapshot.cells_planned),
+        target: study.target.margin,
+        decide_by: snapshot.decide_by,
+        tune_for: view.tune_for,
+        population: view.population,
+        weighted: study.source.weight.is_some(),
+    };
+    let queries: Vec<(Query, f64)> = cell
+        .measures
+        .iter()
+        .filter(|m| m.n > 0)
+        .filter_map(|m| Some((query(m, &d).ok()?, m.n as f64 / now as f64)))
+        .collect();
+    let upto = upto.max(now);
+    let steps = points.max(2) - 1;
+    let mut out: Vec<(u64, f64)> = Vec::with_capacity(points);
+    for i in 0..=steps {
+        let responses = now + ((upto - now) as f64 * i as f64 / steps as f64).round() as u64;
+        if out.last().is_some_and(|&(r, _)| r == responses) {
+            continue;
+        }
+        let widest = queries.iter().try_fold(None::<f64>, |widest, (q, share)| {
+            let n = ((responses as f64 * share).round() as u64).max(1);
+            match bounds::projected_margin(d.decide_by, q, n) {
+                Some(Ok(m)) => Some(Some(widest.map_or(m, |w: f64| w.max(m)))),
+                _ => None,
+            }
+        });
+        if let Some(Some(margin)) = widest {
+            out.push((responses, margin));
+        }
+    }
+    out
+}
+
+/// The key under which the tally holds a cell of a snapshot.
+pub fn tally_key(study: &Study, cell: &CellView) -> CellKey {
+    CellKey(
+        study
+            .cells
+            .iter()
+            .map(|column| crate::rows::normalise(cell.cell.get(column).map_or("", String::as_str)))
+            .collect(),
+    )
 }

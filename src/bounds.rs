@@ -21,7 +21,8 @@ use std::str::FromStr;
 use serde::{Deserialize, Serialize};
 
 pub use size::{
-    RequiredSize, SizeQuery, more_needed, required_size, required_sizes, widest_margin,
+    RequiredSize, SizeQuery, more_needed, projected_margin, required_size, required_sizes,
+    widest_margin,
 };
 pub use worst_case::EXACT_LIMIT as BINOMIAL_EXACT_LIMIT;
 

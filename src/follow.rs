@@ -186,6 +186,7 @@ pub struct Follower {
     path: PathBuf,
     delimiter: u8,
     limit: u64,
+    read_limit: u64,
     reading: Option<Reading>,
     missing: bool,
     caught_up: bool,
@@ -200,6 +201,7 @@ impl Follower {
             path: path.into(),
             delimiter,
             limit: RECORD_LIMIT,
+            read_limit: READ_LIMIT,
             reading: None,
             missing: false,
             caught_up: true,
@@ -210,6 +212,13 @@ impl Follower {
     /// The same, with another record size limit (for tests of the limit).
     pub fn with_record_limit(mut self, limit: u64) -> Follower {
         self.limit = limit;
+        self
+    }
+
+    /// The same, reading at most `bytes` per poll instead of [`READ_LIMIT`] (so that
+    /// tests can watch a small file's first read take several polls).
+    pub fn with_read_limit(mut self, bytes: u64) -> Follower {
+        self.read_limit = bytes.max(1);
         self
     }
 
@@ -343,7 +352,7 @@ impl Follower {
         size: u64,
     ) -> Result<Vec<Record>, FollowError> {
         let mut records = Vec::new();
-        let stop = size.min(reading.reader.taken().saturating_add(READ_LIMIT));
+        let stop = size.min(reading.reader.taken().saturating_add(self.read_limit));
         let mut buffer = vec![0u8; BLOCK];
         while reading.reader.taken() < stop {
             let at = reading.reader.taken();

@@ -2,8 +2,11 @@
 //! a `notify` watcher on the file's *parent directory* (so that a file that is
 //! replaced, rotated or re-created is still seen), filtered by file name; a safety
 //! tick every second whatever the watcher says; and whatever else the caller sends
-//! (a stop on Ctrl-C). Hints decide nothing: the receiver polls the file and `stat`
-//! and the bytes decide.
+//! (a stop on Ctrl-C, or the dashboard's requests to its reading thread). Hints decide
+//! nothing: the receiver polls the file and `stat` and the bytes decide.
+//!
+//! The channel carries the caller's own message type `T`, made from a [`Hint`] with
+//! `From`, so that one receiver gets the hints and everything else its thread is told.
 
 use std::ffi::OsString;
 use std::path::{Path, PathBuf};
@@ -27,24 +30,24 @@ pub enum Hint {
 }
 
 /// The channel, and the watcher that feeds it while it lives.
-pub struct Hints {
-    receiver: Receiver<Hint>,
-    sender: Sender<Hint>,
+pub struct Hints<T = Hint> {
+    receiver: Receiver<T>,
+    sender: Sender<T>,
     watcher: Option<RecommendedWatcher>,
     /// Why the watcher could not be created, if it could not (polling then).
     pub watch_error: Option<String>,
 }
 
-impl Hints {
+impl<T: From<Hint> + Send + 'static> Hints<T> {
     /// Hints for `file`: a watcher on its parent directory unless `poll_only`, and
     /// the safety tick every `tick`.
-    pub fn start(file: &Path, poll_only: bool, tick: Duration) -> Hints {
+    pub fn start(file: &Path, poll_only: bool, tick: Duration) -> Hints<T> {
         let (sender, receiver) = channel();
         let ticker = sender.clone();
         std::thread::spawn(move || {
             loop {
                 std::thread::sleep(tick);
-                if ticker.send(Hint::Tick).is_err() {
+                if ticker.send(T::from(Hint::Tick)).is_err() {
                     break;
                 }
             }
@@ -70,18 +73,23 @@ impl Hints {
     }
 
     /// A sender for other events on the same channel.
-    pub fn sender(&self) -> Sender<Hint> {
+    pub fn sender(&self) -> Sender<T> {
         self.sender.clone()
     }
 
-    /// The next hint, waiting for it. `None` never happens while `self` holds a
+    /// The next message, waiting for it. `None` never happens while `self` holds a
     /// sender, but is handled as a stop.
-    pub fn next(&self) -> Option<Hint> {
+    pub fn next(&self) -> Option<T> {
         self.receiver.recv().ok()
     }
 
-    /// A hint that is already waiting, if any (to fold a burst into one poll).
-    pub fn try_next(&self) -> Option<Hint> {
+    /// The next message, waiting at most `timeout` for it.
+    pub fn next_within(&self, timeout: Duration) -> Option<T> {
+        self.receiver.recv_timeout(timeout).ok()
+    }
+
+    /// A message that is already waiting, if any (to fold a burst into one poll).
+    pub fn try_next(&self) -> Option<T> {
         self.receiver.try_recv().ok()
     }
 }
@@ -91,7 +99,10 @@ fn concerns(paths: &[PathBuf], name: Option<&std::ffi::OsStr>) -> bool {
     paths.iter().any(|p| p.file_name() == name)
 }
 
-fn watch(file: &Path, sender: Sender<Hint>) -> notify::Result<RecommendedWatcher> {
+fn watch<T: From<Hint> + Send + 'static>(
+    file: &Path,
+    sender: Sender<T>,
+) -> notify::Result<RecommendedWatcher> {
     let name: Option<OsString> = file.file_name().map(OsString::from);
     let parent: PathBuf = match file.parent() {
         Some(p) if !p.as_os_str().is_empty() => p.to_path_buf(),
@@ -104,7 +115,7 @@ fn watch(file: &Path, sender: Sender<Hint>) -> notify::Result<RecommendedWatcher
             Err(_) => true,
         };
         if relevant {
-            let _ = sender.send(Hint::File);
+            let _ = sender.send(T::from(Hint::File));
         }
     })?;
     watcher.watch(&parent, RecursiveMode::NonRecursive)?;
@@ -121,7 +132,7 @@ mod tests {
     fn a_write_to_the_file_is_a_hint_and_the_sender_shares_the_channel() {
         let dir = tempfile::tempdir().unwrap();
         let path = dir.path().join("responses.csv");
-        let hints = Hints::start(&path, false, Duration::from_secs(3600));
+        let hints: Hints = Hints::start(&path, false, Duration::from_secs(3600));
         assert!(hints.watching(), "{:?}", hints.watch_error);
         std::fs::write(&path, "a,b\n").unwrap();
         let got = hints.receiver.recv_timeout(Duration::from_secs(60));
@@ -154,7 +165,7 @@ mod tests {
     #[test]
     fn polling_only_has_no_watcher_and_ticks() {
         let dir = tempfile::tempdir().unwrap();
-        let hints = Hints::start(&dir.path().join("r.csv"), true, Duration::from_millis(1));
+        let hints: Hints = Hints::start(&dir.path().join("r.csv"), true, Duration::from_millis(1));
         assert!(!hints.watching());
         assert_eq!(hints.next(), Some(Hint::Tick));
     }

@@ -19,6 +19,7 @@ pub mod assess;
 pub mod batch;
 pub mod bounds;
 pub mod clock;
+pub mod dashboard;
 pub mod demo;
 pub mod event_log;
 pub mod follow;

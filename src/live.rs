@@ -130,6 +130,12 @@ impl Live {
         self.problem.as_deref()
     }
 
+    /// The byte offset up to which the responses file has been read (for a gauge of
+    /// the first read; compare with the file's size).
+    pub fn bytes_read(&self) -> u64 {
+        self.follower.offset()
+    }
+
     /// Whether the file is missing.
     pub fn waiting(&self) -> bool {
         self.follower.waiting()

@@ -1,6 +1,6 @@
 //! The `closeout` command: argument parsing and exit codes; the library does the work.
 
-use std::io::Write;
+use std::io::{IsTerminal, Write};
 use std::path::PathBuf;
 use std::process::ExitCode;
 
@@ -11,7 +11,7 @@ use closeout::clock::Clock;
 use closeout::event_log::EventLog;
 use closeout::hints::{self, Hint, Hints};
 use closeout::study::Study;
-use closeout::{assess, batch, demo, headless, report};
+use closeout::{assess, batch, dashboard, demo, headless, report};
 
 /// Follow survey fieldwork: margins of error per quota cell and when collection can close.
 #[derive(Parser)]
@@ -82,6 +82,15 @@ enum Command {
         until_ready: bool,
         /// With --follow: look at the file every second instead of watching its folder.
         #[arg(long, requires = "follow")]
+        poll: bool,
+    },
+    /// The live dashboard: every cell's margin, needs and ETA, kept current as responses
+    /// arrive. Without a terminal it prints what `status --follow` prints.
+    Watch {
+        /// The study file (TOML).
+        study: PathBuf,
+        /// Look at the file every second instead of watching its folder.
+        #[arg(long)]
         poll: bool,
     },
     /// Simulated fieldwork of an invented study, to watch the whole job work.
@@ -278,6 +287,33 @@ fn run(cli: Cli) -> Result<Done, Usage> {
             until,
             write,
         } => run_demo(seed, speed, dir, headless, until, write),
+        Command::Watch { study, poll } => {
+            let study = Study::load(&study).map_err(|e| Usage(e.to_string()))?;
+            let log = open_log(&study)?;
+            if !std::io::stdout().is_terminal() {
+                let options = headless::FollowOptions::default();
+                return Ok(follow_without_terminal(study, log, options, poll));
+            }
+            let options = dashboard::Options {
+                clock: Clock::System,
+                poll_only: poll,
+                zone: jiff::tz::TimeZone::system(),
+                theme: dashboard::Theme::from_env(),
+            };
+            match dashboard::run(study, log, options) {
+                Ok(()) => Ok(Done {
+                    text: String::new(),
+                    code: 0,
+                }),
+                Err(e) => {
+                    eprintln!("closeout: the dashboard cannot use this terminal: {e}");
+                    Ok(Done {
+                        text: String::new(),
+                        code: 1,
+                    })
+                }
+            }
+        }
         Command::Status {
             study,
             format,
@@ -299,33 +335,13 @@ fn run(cli: Cli) -> Result<Done, Usage> {
                     }
                 };
                 let study = Study::load(&study).map_err(|e| Usage(e.to_string()))?;
-                let log = match &study.log {
-                    Some(path) => Some(
-                        EventLog::open(path, &study.source.file, &study.study_path)
-                            .map_err(|e| Usage(e.to_string()))?,
-                    ),
-                    None => None,
-                };
+                let log = open_log(&study)?;
                 let options = headless::FollowOptions {
                     json,
                     until_ready,
                     exit_code,
                 };
-                let hints = Hints::start(&study.source.file, poll, hints::TICK);
-                stop_on_ctrl_c(&hints);
-                let code = headless::follow(
-                    study,
-                    log,
-                    options,
-                    &Clock::System,
-                    &hints,
-                    &mut std::io::stdout(),
-                    &mut std::io::stderr(),
-                );
-                return Ok(Done {
-                    text: String::new(),
-                    code,
-                });
+                return Ok(follow_without_terminal(study, log, options, poll));
             }
             let as_of = match as_of {
                 Some(text) => text.parse::<jiff::Timestamp>().map_err(|e| {
@@ -350,6 +366,41 @@ fn run(cli: Cli) -> Result<Done, Usage> {
             };
             Ok(Done { text, code })
         }
+    }
+}
+
+/// The study's event log, opened for appending, when it names one.
+fn open_log(study: &Study) -> Result<Option<EventLog>, Usage> {
+    match &study.log {
+        Some(path) => EventLog::open(path, &study.source.file, &study.study_path)
+            .map(Some)
+            .map_err(|e| Usage(e.to_string())),
+        None => Ok(None),
+    }
+}
+
+/// `status --follow`, and `watch` without a terminal: the library's follow loop on
+/// the wall clock, stopped by Ctrl-C or SIGTERM.
+fn follow_without_terminal(
+    study: Study,
+    log: Option<EventLog>,
+    options: headless::FollowOptions,
+    poll: bool,
+) -> Done {
+    let hints = Hints::start(&study.source.file, poll, hints::TICK);
+    stop_on_ctrl_c(&hints);
+    let code = headless::follow(
+        study,
+        log,
+        options,
+        &Clock::System,
+        &hints,
+        &mut std::io::stdout(),
+        &mut std::io::stderr(),
+    );
+    Done {
+        text: String::new(),
+        code,
     }
 }
 

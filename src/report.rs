@@ -8,7 +8,7 @@ use crate::bounds::{BoundRow, Interval, Query, RequiredSize, SizeQuery, Unavaila
 mod follow;
 mod status;
 
-pub use follow::{FollowOutput, Lines, summary};
+pub use follow::{FollowOutput, Lines, notice, summary};
 pub use status::{neutralise, status_csv, status_json, status_text, verdict, when};
 
 /// The cautions in one line, for compact outputs.

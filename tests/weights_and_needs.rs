@@ -141,3 +141,37 @@ fn more_needed_is_capped_by_the_population() {
     let hyper = bounds::more_needed(Method::ClopperPearson, &q, 0.001).unwrap();
     assert_eq!(hyper, Some(40));
 }
+
+/// The dashboard's projected margin curve and "how many more" tell one story: at the
+/// responses held now the projection is the margin itself, and it first reaches the
+/// target after exactly the number of responses `more_needed` says (for methods whose
+/// margin shrinks steadily with n at a fixed proportion). Whole-count proportions, so
+/// that holding the proportion keeps the counts exact.
+#[test]
+fn the_projected_margin_meets_the_target_where_more_needed_says() {
+    for (s, n) in [(30, 100), (9, 60), (150, 300), (1, 40)] {
+        for method in [Method::Wald, Method::Hoeffding, Method::Chebyshev] {
+            let q = Query::new(s, n, conf()).unwrap().with_tune_for(n).unwrap();
+            let now = bounds::projected_margin(method, &q, n).unwrap().unwrap();
+            let margin = bounds::interval(method, &q).unwrap().margin;
+            assert!(
+                (now - margin).abs() < 1e-12,
+                "{method} {s}/{n}: {now} vs {margin}"
+            );
+            let target = 0.05;
+            let more = bounds::more_needed(method, &q, target).unwrap().unwrap();
+            let at = |k: u64| {
+                bounds::projected_margin(method, &q, n + k)
+                    .unwrap()
+                    .unwrap()
+            };
+            assert!(at(more) <= target * (1.0 + 1e-12), "{method} {s}/{n}");
+            if more > 0 {
+                assert!(at(more - 1) > target, "{method} {s}/{n}: {more}");
+            }
+        }
+    }
+    // Before any response there is no proportion to hold.
+    let empty = Query::new(0, 0, conf()).unwrap();
+    assert!(bounds::projected_margin(Method::Wald, &empty, 10).is_none());
+}

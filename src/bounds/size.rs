@@ -307,25 +307,43 @@ pub fn more_needed(method: Method, q: &Query, target: f64) -> Result<Option<u64>
         })?;
         return Ok(needed.map(|n| n.saturating_sub(q.n())));
     };
-    let weighted = q.weights();
-    // With weights the design effect n / n_eff is taken to stay as it is.
-    let design_effect = weighted.map_or(1.0, |w| q.n() as f64 / w.effective_n());
     let needed = smallest_meeting(q.n().max(first_n(method)), cap, |n| {
-        let b = match weighted {
-            Some(_) => {
-                let n_eff = n as f64 / design_effect;
-                Basis {
-                    s: estimate * n_eff,
-                    n: n_eff,
-                    whole: None,
-                    delta: level.delta(),
-                    population: None,
-                    tune_for,
-                }
-            }
-            None => basis_at(n, estimate * n as f64, level, q.population(), tune_for),
-        };
-        Ok(within(margin_at(method, &b, weighted.is_some())?, target))
+        Ok(within(projected(method, q, estimate, n)?, target))
     })?;
     Ok(needed.map(|n| n - q.n()))
+}
+
+/// The margin `method` would give at `n` responses if the current proportion held,
+/// as [`more_needed`] assumes: with weights, the design effect n / n_eff is taken to
+/// stay as it is. `None` before any response (no proportion to hold yet).
+pub fn projected_margin(method: Method, q: &Query, n: u64) -> Option<Result<f64, Unavailable>> {
+    let estimate = q.estimate()?;
+    if n < first_n(method) {
+        return Some(Err(Unavailable {
+            method,
+            reason: "too few responses for this method",
+        }));
+    }
+    Some(projected(method, q, estimate, n))
+}
+
+fn projected(method: Method, q: &Query, estimate: f64, n: u64) -> Result<f64, Unavailable> {
+    let level = q.level();
+    let tune_for = q.tune_for() as f64;
+    let b = match q.weights() {
+        Some(w) => {
+            let design_effect = q.n() as f64 / w.effective_n();
+            let n_eff = n as f64 / design_effect;
+            Basis {
+                s: estimate * n_eff,
+                n: n_eff,
+                whole: None,
+                delta: level.delta(),
+                population: None,
+                tune_for,
+            }
+        }
+        None => basis_at(n, estimate * n as f64, level, q.population(), tune_for),
+    };
+    margin_at(method, &b, q.weights().is_some())
 }

@@ -38,45 +38,15 @@ impl FollowOutput {
         let mut started_over = false;
         let mut counted = false;
         for event in events {
-            let notice = match event {
-                LiveEvent::Started => {
-                    counted = true;
-                    None
-                }
-                LiveEvent::Counted { .. } => {
-                    counted = true;
-                    None
-                }
-                LiveEvent::Reset { why, columns } => {
+            match event {
+                LiveEvent::Started | LiveEvent::Counted { .. } => counted = true,
+                LiveEvent::Reset { .. } => {
                     started_over = true;
                     counted = true;
-                    let columns = columns
-                        .as_ref()
-                        .map(|c| format!(" ({c})"))
-                        .unwrap_or_default();
-                    Some(format!(
-                        "the responses file was {}{columns}: counted again from its start",
-                        why.word()
-                    ))
                 }
-                LiveEvent::Waiting => Some(
-                    "the responses file is missing: waiting for it (the last figures stand)"
-                        .to_string(),
-                ),
-                LiveEvent::Resumed => Some("the responses file is back".to_string()),
-                LiveEvent::HeaderProblem { message, columns } => {
-                    let columns = columns
-                        .as_ref()
-                        .map(|c| format!(" ({c})"))
-                        .unwrap_or_default();
-                    Some(format!(
-                        "{}{columns}; nothing more is counted until the header fits the study",
-                        clean(message, 400)
-                    ))
-                }
-                LiveEvent::Warning(w) => Some(format!("warning: {w}")),
-            };
-            if let Some(notice) = notice {
+                _ => {}
+            }
+            if let Some(notice) = notice(event) {
                 let line = format!("{stamp} {notice}");
                 if self.json {
                     lines.err.push(line);
@@ -112,6 +82,39 @@ impl FollowOutput {
         } else {
             summary(snapshot)
         }
+    }
+}
+
+/// What to tell the user about one event of a look, if anything: resets, waits, header
+/// problems and warnings (counting itself says nothing).
+pub fn notice(event: &LiveEvent) -> Option<String> {
+    match event {
+        LiveEvent::Started | LiveEvent::Counted { .. } => None,
+        LiveEvent::Reset { why, columns } => {
+            let columns = columns
+                .as_ref()
+                .map(|c| format!(" ({c})"))
+                .unwrap_or_default();
+            Some(format!(
+                "the responses file was {}{columns}: counted again from its start",
+                why.word()
+            ))
+        }
+        LiveEvent::Waiting => Some(
+            "the responses file is missing: waiting for it (the last figures stand)".to_string(),
+        ),
+        LiveEvent::Resumed => Some("the responses file is back".to_string()),
+        LiveEvent::HeaderProblem { message, columns } => {
+            let columns = columns
+                .as_ref()
+                .map(|c| format!(" ({c})"))
+                .unwrap_or_default();
+            Some(format!(
+                "{}{columns}; nothing more is counted until the header fits the study",
+                clean(message, 400)
+            ))
+        }
+        LiveEvent::Warning(w) => Some(format!("warning: {w}")),
     }
 }
 
