@@ -10,9 +10,10 @@
 //! Three ways to run it: [`run_headless`] performs the actions in lockstep with a
 //! [`Live`] tally (no threads, no real time: fully deterministic); [`play`] runs the
 //! paced writer beside the follow loop of [`crate::headless`] on a simulated clock;
-//! and the dashboard can run [`spawn_writer`] beside itself. Because the true
-//! proportions are known, [`coverage`] says at the end whether each cell's final
-//! interval covers its true value. Knows nothing of the dashboard's internals.
+//! and the dashboard can run the paced writer ([`Demo::start_writer`]) beside
+//! itself. Because the true proportions are known, [`coverage`] says at the end
+//! whether each cell's final interval covers its true value. Knows nothing of the
+//! dashboard's internals.
 
 use std::io::Write;
 use std::path::{Path, PathBuf};
@@ -145,6 +146,28 @@ impl Demo {
             )?)),
             None => Ok(None),
         }
+    }
+
+    /// Start the fieldwork on `clock` (a simulated clock starting at `plan.start`):
+    /// what happens at the start (the file's header) is written at once, so the file
+    /// is there before the first look, and the rest by the paced writer, which calls
+    /// `done` after its last action. The dashboard runs beside the returned writer and
+    /// stops it on quit.
+    pub fn start_writer(
+        &self,
+        clock: Clock,
+        done: impl FnOnce() + Send + 'static,
+    ) -> Result<Writer, DemoError> {
+        let (now, later): (Vec<Action>, Vec<Action>) = self
+            .plan
+            .actions
+            .iter()
+            .cloned()
+            .partition(|a| a.at <= self.plan.start);
+        for action in &now {
+            perform(&action.file, &self.dir)?;
+        }
+        Ok(spawn_writer(later, self.dir.clone(), clock, done))
     }
 
     /// What the demo says first: where the files are, that the data are invented
@@ -482,23 +505,14 @@ pub fn play(
         Err(e) => return fail(err, e),
     };
     let log_path = study.log.clone();
-    // What happens at the start (the header) is there before the first look.
-    let (now, later): (Vec<Action>, Vec<Action>) = demo
-        .plan
-        .actions
-        .iter()
-        .cloned()
-        .partition(|a| a.at <= demo.plan.start);
-    for action in &now {
-        if let Err(e) = perform(&action.file, &demo.dir) {
-            return fail(err, e);
-        }
-    }
     let clock = Clock::simulated(demo.plan.start, speed);
     let stop = hints.sender();
-    let writer = spawn_writer(later, demo.dir.clone(), clock, move || {
+    let writer = match demo.start_writer(clock, move || {
         let _ = stop.send(Hint::Stop);
-    });
+    }) {
+        Ok(w) => w,
+        Err(e) => return fail(err, e),
+    };
     let options = FollowOptions {
         json: false,
         until_ready: true,
@@ -643,6 +657,25 @@ mod tests {
         let w = spawn_writer(actions, tmp.path().to_path_buf(), clock, || {});
         assert_eq!(w.stop().unwrap(), 0);
         assert!(!tmp.path().join(plan::RESPONSES).exists());
+    }
+
+    /// The start's actions are carried out before `start_writer` returns (the file's
+    /// header is there for the first look); on a clock stopped at the start, nothing
+    /// more is written until the writer is stopped.
+    #[test]
+    fn start_writer_writes_the_header_at_once_and_paces_the_rest() {
+        let tmp = tempfile::tempdir().unwrap();
+        let demo = prepare(tmp.path(), plan(3).unwrap()).unwrap();
+        let clock = Clock::Fixed(demo.plan.start);
+        let w = demo.start_writer(clock, || {}).unwrap();
+        let text = std::fs::read_to_string(tmp.path().join(plan::RESPONSES)).unwrap();
+        assert_eq!(text, plan::header());
+        assert_eq!(w.stop().unwrap(), 0);
+        let study = demo.study().unwrap();
+        assert_eq!(study.quotas.len(), 24);
+        assert!(study.log.is_some());
+        let readme = std::fs::read_to_string(tmp.path().join("README.txt")).unwrap();
+        assert!(readme.starts_with("INVENTED DATA"));
     }
 
     /// The check compares the deciding method's interval with the truth: 30 yes of
