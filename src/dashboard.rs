@@ -85,9 +85,15 @@ pub fn draw<B: Backend>(terminal: &mut Terminal<B>, app: &mut App) -> Result<(),
     Ok(())
 }
 
-/// Open the dashboard on the study in this terminal and run it until the user quits.
-/// The terminal is restored on the way out, and on a panic.
-pub fn run(study: Study, log: Option<EventLog>, options: Options) -> std::io::Result<()> {
+/// Open the dashboard on the study in this terminal and run it until the user quits
+/// or a signal stops it. `on_stop` is given a sender for [`Event::Stop`], for the
+/// caller's signal handler. The terminal is restored on the way out, and on a panic.
+pub fn run(
+    study: Study,
+    log: Option<EventLog>,
+    options: Options,
+    on_stop: impl FnOnce(Sender<Event>),
+) -> std::io::Result<()> {
     // Our themes decide colour (monochrome under NO_COLOR). Left to itself, crossterm
     // answers NO_COLOR by writing a bare "ESC[m" for every colour change, which also
     // switches off bold and reverse video; with colour output forced, the styles are
@@ -98,6 +104,7 @@ pub fn run(study: Study, log: Option<EventLog>, options: Options) -> std::io::Re
         let sender = sender.clone();
         move |update| sender.send(Event::Feed(update)).is_ok()
     });
+    on_stop(sender.clone());
     let stop = Arc::new(AtomicBool::new(false));
     spawn_input(sender.clone(), Arc::clone(&stop));
     spawn_ticker(sender, options.clock, Arc::clone(&stop));

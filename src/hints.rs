@@ -13,6 +13,7 @@ use std::path::{Path, PathBuf};
 use std::sync::mpsc::{Receiver, Sender, channel};
 use std::time::Duration;
 
+use notify::event::{AccessKind, AccessMode, EventKind};
 use notify::{RecommendedWatcher, RecursiveMode, Watcher};
 
 /// The safety tick.
@@ -99,6 +100,17 @@ fn concerns(paths: &[PathBuf], name: Option<&std::ffi::OsStr>) -> bool {
     paths.iter().any(|p| p.file_name() == name)
 }
 
+/// Whether the event may mean the file changed. Opening, reading and closing a file
+/// without writing change nothing, and every look at the file does exactly that: were
+/// they hints, each look would cause the next, and the program would never rest.
+fn may_change(kind: &EventKind) -> bool {
+    match kind {
+        EventKind::Access(AccessKind::Close(AccessMode::Write)) => true,
+        EventKind::Access(_) => false,
+        _ => true,
+    }
+}
+
 fn watch<T: From<Hint> + Send + 'static>(
     file: &Path,
     sender: Sender<T>,
@@ -110,7 +122,7 @@ fn watch<T: From<Hint> + Send + 'static>(
     };
     let mut watcher = notify::recommended_watcher(move |event: notify::Result<notify::Event>| {
         let relevant = match &event {
-            Ok(event) => concerns(&event.paths, name.as_deref()),
+            Ok(event) => may_change(&event.kind) && concerns(&event.paths, name.as_deref()),
             // An error from the watcher: poll anyway.
             Err(_) => true,
         };
@@ -160,6 +172,30 @@ mod tests {
         assert!(!concerns(&[p("/d/responses.csv.1")], name));
         assert!(!concerns(&[p("/d/other.csv"), p("/d")], name));
         assert!(!concerns(&[], name));
+    }
+
+    /// Our own looks (open, read, close without writing) are no hints; a write, a
+    /// finished write, a creation, a rename and a removal are.
+    #[test]
+    fn reading_the_file_is_no_hint() {
+        use notify::event::{CreateKind, ModifyKind, RemoveKind, RenameMode};
+        assert!(!may_change(&EventKind::Access(AccessKind::Open(
+            AccessMode::Any
+        ))));
+        assert!(!may_change(&EventKind::Access(AccessKind::Read)));
+        assert!(!may_change(&EventKind::Access(AccessKind::Close(
+            AccessMode::Read
+        ))));
+        assert!(may_change(&EventKind::Access(AccessKind::Close(
+            AccessMode::Write
+        ))));
+        assert!(may_change(&EventKind::Modify(ModifyKind::Any)));
+        assert!(may_change(&EventKind::Modify(ModifyKind::Name(
+            RenameMode::To
+        ))));
+        assert!(may_change(&EventKind::Create(CreateKind::File)));
+        assert!(may_change(&EventKind::Remove(RemoveKind::File)));
+        assert!(may_change(&EventKind::Any));
     }
 
     #[test]

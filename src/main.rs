@@ -300,7 +300,17 @@ fn run(cli: Cli) -> Result<Done, Usage> {
                 zone: jiff::tz::TimeZone::system(),
                 theme: dashboard::Theme::from_env(),
             };
-            match dashboard::run(study, log, options) {
+            let on_stop = |stop: std::sync::mpsc::Sender<dashboard::Event>| {
+                // SIGTERM and SIGHUP end the dashboard as q does, restoring the terminal.
+                if let Err(e) = ctrlc::set_handler(move || {
+                    let _ = stop.send(dashboard::Event::Stop);
+                }) {
+                    eprintln!(
+                        "closeout: cannot catch signals ({e}); a kill will leave the terminal as it is"
+                    );
+                }
+            };
+            match dashboard::run(study, log, options, on_stop) {
                 Ok(()) => Ok(Done {
                     text: String::new(),
                     code: 0,

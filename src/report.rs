@@ -59,7 +59,9 @@ pub fn confidence_label(c: f64, delta: f64) -> String {
     }
 }
 
-fn wrap(text: &str, width: usize) -> String {
+/// Words of `text` joined into lines of at most `width` characters (a longer word
+/// stands alone on its line).
+pub fn wrap(text: &str, width: usize) -> String {
     let mut out = String::new();
     let mut line = 0;
     for word in text.split_whitespace() {

@@ -542,3 +542,76 @@ fn the_cell_page_shows_every_method_the_chart_and_arrivals() {
     f.app.update(Event::Feed(Box::new(update)));
     insta::assert_snapshot!("cell_page", f.screen());
 }
+
+#[test]
+fn the_feed_speaks_only_when_something_changed() {
+    let mut f = Fieldwork::new(&first_stage(), 1 << 20, 100, 30, Theme::colour());
+    f.catch_up(after(109));
+    let t = after(109);
+    // Nothing new within the minute: no update.
+    assert!(
+        f.feed
+            .look(t + SignedDuration::from_secs(30), f.real)
+            .is_none()
+    );
+    // A minute of the clock: a fresh verdict (rates and ETAs move with the clock).
+    let update = f
+        .feed
+        .look(t + SignedDuration::from_secs(61), f.real)
+        .unwrap();
+    assert_eq!(update.snapshot.as_of, t + SignedDuration::from_secs(61));
+    // A command: an update at once, even within the minute.
+    f.feed.command(Command::Focus(Some("east × 40+".into())));
+    let update = f
+        .feed
+        .look(t + SignedDuration::from_secs(62), f.real)
+        .unwrap();
+    assert_eq!(update.focus.unwrap().label, "east × 40+");
+    // Previewing the study's own method is no preview.
+    f.feed.command(Command::Preview(Some(Method::Wilson)));
+    assert!(
+        f.feed
+            .look(t + SignedDuration::from_secs(63), f.real)
+            .is_none()
+    );
+}
+
+#[test]
+fn a_missing_file_and_a_header_that_does_not_fit_are_shown_and_the_figures_stand() {
+    use closeout::dashboard::feed::Reading;
+    let mut f = Fieldwork::new(&first_stage(), 1 << 20, 100, 30, Theme::colour());
+    f.catch_up(after(109));
+    std::fs::remove_file(&f.path).unwrap();
+    f.look(after(110));
+    let reading = |f: &Fieldwork| f.app.feed_reading().cloned();
+    assert_eq!(reading(&f), Some(Reading::WaitingForFile));
+    assert_eq!(
+        f.app.snapshot().unwrap().responses,
+        260,
+        "the last figures stand"
+    );
+    let screen = f.screen();
+    assert!(screen.contains("waiting for the file"), "{screen}");
+    // It comes back with a header that lacks a column the study reads.
+    std::fs::write(
+        &f.path,
+        "id,branch,age,q1,at\nz1,east,40+,yes,2026-03-03T21:00:00Z\n",
+    )
+    .unwrap();
+    f.look(after(111));
+    match reading(&f) {
+        Some(Reading::HeaderProblem(message)) => assert!(message.contains("q2"), "{message}"),
+        other => panic!("{other:?}"),
+    }
+    assert_eq!(
+        f.app.snapshot().unwrap().responses,
+        260,
+        "the last figures stand"
+    );
+    f.key(KeyCode::Char('p'));
+    let screen = f.screen();
+    let folder = f.folder().display().to_string();
+    insta::with_settings!({filters => vec![(folder.as_str(), "[folder]")]}, {
+        insta::assert_snapshot!("header_problem", screen);
+    });
+}

@@ -43,8 +43,12 @@ fn setup() -> tempfile::TempDir {
 }
 
 fn start(dir: &Path, args: &[&str]) -> (Child, Receiver<String>) {
+    start_command(dir, "status", args)
+}
+
+fn start_command(dir: &Path, command: &str, args: &[&str]) -> (Child, Receiver<String>) {
     let mut child = Command::new(assert_cmd::cargo::cargo_bin("closeout"))
-        .arg("status")
+        .arg(command)
         .arg(dir.join("study.toml"))
         .args(args)
         .stdout(Stdio::piped())
@@ -148,8 +152,19 @@ fn until_ready_works_by_polling_too() {
 
 #[test]
 fn sigterm_ends_cleanly_with_the_last_state() {
+    sigterm_ends_cleanly("status", &["--follow"]);
+}
+
+/// `closeout watch` without a terminal (standard output is a pipe here) prints what
+/// `status --follow` prints, and ends the same way.
+#[test]
+fn watch_without_a_terminal_prints_what_status_follow_prints() {
+    sigterm_ends_cleanly("watch", &[]);
+}
+
+fn sigterm_ends_cleanly(command: &str, args: &[&str]) {
     let dir = setup();
-    let (mut child, lines) = start(dir.path(), &["--follow"]);
+    let (mut child, lines) = start_command(dir.path(), command, args);
     let first = next_line(&lines);
     assert!(first.contains("2 responses"), "{first}");
     assert!(first.contains("still collecting"), "{first}");

@@ -158,6 +158,13 @@ fn the_dashboard_follows_appends_and_restores_the_terminal() {
 
     // q quits; the shell finds its terminal as it was.
     tmux.keys("q");
+    assert_restored(&tmux);
+}
+
+/// The dashboard has ended with exit code 0 and the shell's terminal is as it was:
+/// the dashboard's screen is gone (the alternate screen was left), line editing and
+/// echo are on.
+fn assert_restored(tmux: &Tmux) {
     let screen = tmux.wait_for("EXITED 0");
     assert!(
         !screen.contains("counted"),
@@ -203,4 +210,34 @@ fn without_colour_the_selection_is_in_reverse_video() {
     }
     tmux.keys("q");
     tmux.wait_for("EXITED 0");
+}
+
+/// The dashboard's process in `dir` (its working folder tells it from other tests').
+fn closeout_in(dir: &Path) -> Option<u32> {
+    let found = Command::new("pgrep")
+        .args(["-x", "closeout"])
+        .output()
+        .ok()?;
+    String::from_utf8_lossy(&found.stdout)
+        .lines()
+        .filter_map(|l| l.trim().parse::<u32>().ok())
+        .find(|pid| {
+            std::fs::read_link(format!("/proc/{pid}/cwd"))
+                .is_ok_and(|cwd| cwd == dir.canonicalize().unwrap())
+        })
+}
+
+#[test]
+fn sigterm_ends_the_dashboard_and_restores_the_terminal() {
+    let dir = tempfile::tempdir().unwrap();
+    study_in(dir.path(), &format!("id,deck,q1\n{}", rows(0, 40)));
+    let tmux = Tmux::start("term", 100, 30, &command(dir.path()), &[("TZ", "UTC")]);
+    tmux.wait_for("40 counted");
+    let pid = closeout_in(dir.path()).expect("the dashboard's process");
+    let killed = Command::new("kill")
+        .args(["-TERM", &pid.to_string()])
+        .status()
+        .unwrap();
+    assert!(killed.success());
+    assert_restored(&tmux);
 }

@@ -14,14 +14,15 @@ use super::theme::Theme;
 use crate::assess::{CellView, Snapshot};
 use crate::bounds::Method;
 
-/// Something that happened: a key, a new size, an update from the reading thread, or
-/// the clock's tick.
+/// Something that happened: a key, a new size, an update from the reading thread, the
+/// clock's tick, or a signal to stop (SIGTERM, SIGHUP).
 #[derive(Clone, Debug)]
 pub enum Event {
     Key(KeyEvent),
     Resize(u16, u16),
     Feed(Box<Update>),
     Tick(Timestamp),
+    Stop,
 }
 
 /// What the caller should do after an update.
@@ -212,6 +213,11 @@ impl App {
         self.measure
     }
 
+    /// Where the reading of the file stands, by the last update.
+    pub fn feed_reading(&self) -> Option<&super::feed::Reading> {
+        self.feed.as_deref().map(|u| &u.reading)
+    }
+
     /// The notices kept, oldest first.
     pub fn notices(&self) -> impl Iterator<Item = &Notice> {
         self.notices.iter()
@@ -330,6 +336,7 @@ impl App {
                 Vec::new()
             }
             Event::Feed(update) => self.take_update(update),
+            Event::Stop => vec![Effect::Quit],
         }
     }
 

@@ -217,13 +217,7 @@ impl Feed {
             }
             Err(e) => {
                 let message = e.to_string();
-                if self.last_error.as_deref() != Some(message.as_str()) {
-                    notices.push(Notice {
-                        time: now,
-                        text: report::clean(&message, 400),
-                    });
-                    self.last_error = Some(message.clone());
-                }
+                notices.extend(once(&mut self.last_error, &message, now));
                 let reading = Reading::Failed(report::clean(&message, 400));
                 let changed = reading != self.reading;
                 self.reading = reading;
@@ -304,16 +298,7 @@ impl Feed {
         if let (Some(log), Some(events)) = (&mut self.log, events) {
             match log.record(events, &snapshot) {
                 Ok(()) => self.last_log_error = None,
-                Err(e) => {
-                    let message = e.to_string();
-                    if self.last_log_error.as_deref() != Some(message.as_str()) {
-                        notices.push(Notice {
-                            time: now,
-                            text: report::clean(&message, 400),
-                        });
-                        self.last_log_error = Some(message);
-                    }
-                }
+                Err(e) => notices.extend(once(&mut self.last_log_error, &e.to_string(), now)),
             }
         }
         for cell in &snapshot.cells {
@@ -368,6 +353,19 @@ impl Feed {
             last_reset: self.last_reset,
         }
     }
+}
+
+/// A notice of `message` unless it is the one `last` holds (a failure that repeats at
+/// every look is told once); `last` then holds it.
+fn once(last: &mut Option<String>, message: &str, time: Timestamp) -> Option<Notice> {
+    if last.as_deref() == Some(message) {
+        return None;
+    }
+    *last = Some(message.to_string());
+    Some(Notice {
+        time,
+        text: report::clean(message, 400),
+    })
 }
 
 /// Add the cell's deciding margin to its history when its responses changed.
@@ -482,5 +480,90 @@ where
         commands,
         thread,
         watch_error,
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::assess::{MeasureView, Status};
+
+    fn cell(responses: u64, margins: &[Option<f64>]) -> CellView {
+        CellView {
+            cell: BTreeMap::new(),
+            label: "north".into(),
+            planned: true,
+            responses,
+            minimum: None,
+            population: None,
+            tune_for: 100,
+            status: Status::Open,
+            rate_per_hour: None,
+            eta: None,
+            needed: None,
+            progress: 0.0,
+            latest_arrival: None,
+            measures: margins
+                .iter()
+                .map(|&margin| MeasureView {
+                    name: "q".into(),
+                    n: responses,
+                    successes: 0,
+                    missing: 0,
+                    unexpected: 0,
+                    estimate: None,
+                    effective_n: None,
+                    margin,
+                    met: false,
+                    needed: None,
+                    bounds: Vec::new(),
+                })
+                .collect(),
+            warnings: Vec::new(),
+        }
+    }
+
+    #[test]
+    fn the_history_keeps_the_widest_margin_once_per_count_and_thins_itself() {
+        let mut history = BTreeMap::new();
+        record_margin(&mut history, &cell(10, &[Some(0.2), Some(0.3)]));
+        record_margin(&mut history, &cell(10, &[Some(0.1), Some(0.1)]));
+        // A measure without a margin: no point.
+        record_margin(&mut history, &cell(11, &[Some(0.2), None]));
+        assert_eq!(*history["north"], vec![(10, 0.3)]);
+        for n in 12..1000 {
+            record_margin(&mut history, &cell(n, &[Some(1.0 / n as f64)]));
+        }
+        let points = &history["north"];
+        assert!(points.len() <= HISTORY_POINTS, "{}", points.len());
+        assert_eq!(points.first(), Some(&(10, 0.3)), "the first point stays");
+        assert_eq!(
+            points.last(),
+            Some(&(999, 1.0 / 999.0)),
+            "the latest is there"
+        );
+        assert!(points.windows(2).all(|w| w[0].0 < w[1].0), "in order");
+    }
+
+    #[test]
+    fn arrivals_per_hour_cover_the_week_that_ends_now() {
+        let now: Timestamp = "2026-03-09T10:30:00Z".parse().unwrap();
+        let mut arrivals = Arrivals::default();
+        for t in [
+            "2026-03-09T10:05:00Z", // this hour
+            "2026-03-09T10:59:00Z",
+            "2026-03-09T09:00:00Z", // the hour before
+            "2026-03-02T11:00:00Z", // the first hour of the week
+            "2026-03-02T10:59:00Z", // just before it: left out
+            "2026-03-09T11:00:00Z", // after now's hour: left out
+        ] {
+            arrivals.add(Some(t.parse().unwrap()));
+        }
+        let hours = hourly(&arrivals, Arrivals::hour_of(now));
+        assert_eq!(hours.len(), ARRIVAL_HOURS);
+        assert_eq!(hours[ARRIVAL_HOURS - 1], 2);
+        assert_eq!(hours[ARRIVAL_HOURS - 2], 1);
+        assert_eq!(hours[0], 1);
+        assert_eq!(hours.iter().sum::<u64>(), 4);
     }
 }

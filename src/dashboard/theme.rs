@@ -150,3 +150,16 @@ pub fn status_text(status: Status, planned: bool) -> &'static str {
         (true, Status::AtRisk) => "▲ at risk",
     }
 }
+
+/// A status as one symbol, for narrow tables (with a legend nearby).
+pub fn status_symbol(status: Status, planned: bool) -> &'static str {
+    match (planned, status) {
+        (false, _) => "–",
+        (true, Status::Met) => "✓",
+        (true, Status::Open) => "○",
+        (true, Status::AtRisk) => "▲",
+    }
+}
+
+/// What the symbols of [`status_symbol`] mean.
+pub const STATUS_LEGEND: &str = "✓ met ○ open ▲ at risk – unplanned";

@@ -18,7 +18,7 @@ use ratatui::widgets::{
 use super::app::{App, CellPart, Drawn, Overlay, Page};
 use super::feed::{ARRIVAL_HOURS, Reading};
 use super::format::{bytes, count, duration, moment, percent1, points1, short_moment};
-use super::theme::status_text;
+use super::theme::{STATUS_LEGEND, status_symbol, status_text};
 use crate::assess::{CellView, MeasureView, Snapshot, Status};
 use crate::bounds::{Guarantee, Method};
 use crate::report::{self, CAUTIONS, clean, confidence_label};
@@ -384,17 +384,25 @@ fn draw_cells(frame: &mut Frame, area: Rect, app: &App, drawn: &mut Drawn) {
         return;
     };
     let planned = rows.iter().filter(|c| c.planned).count();
-    let title = format!(
-        " cells: {} planned{} · {}{} · target ±{:.1} ",
-        planned,
-        match rows.len() - planned {
-            0 => String::new(),
-            k => format!(", {k} unplanned"),
-        },
+    // Statuses as words when there is room, as symbols with a legend otherwise.
+    let words = area.width >= 100;
+    let unplanned = match rows.len() - planned {
+        0 => String::new(),
+        k => format!(", {k} unplanned"),
+    };
+    let order = format!(
+        "{}{}",
         app.sort.describe(),
-        if app.reversed { ", reversed" } else { "" },
-        100.0 * s.margin_target
+        if app.reversed { ", reversed" } else { "" }
     );
+    let title = if words {
+        format!(
+            " cells: {planned} planned{unplanned} · {order} · target ±{:.1} ",
+            100.0 * s.margin_target
+        )
+    } else {
+        format!(" cells: {planned} planned{unplanned} · {order} · {STATUS_LEGEND} ")
+    };
     let block = Block::bordered().border_style(t.border).title(title);
     let mut inner = block.inner(area);
     frame.render_widget(block, area);
@@ -410,7 +418,6 @@ fn draw_cells(frame: &mut Frame, area: Rect, app: &App, drawn: &mut Drawn) {
             draw_cell_panel(frame, panel, app, s, c);
         }
     }
-    let wide = inner.width >= 100;
     let widest_col = inner.width >= 120;
     let visible = inner.height.saturating_sub(1) as usize;
     let selected = app.selected_row();
@@ -427,42 +434,46 @@ fn draw_cells(frame: &mut Frame, area: Rect, app: &App, drawn: &mut Drawn) {
     drawn.rows = visible;
 
     let bar_width = 7;
+    let status_width: u16 = if words { 9 } else { 1 };
     let mut header = vec![
-        "", "status", "cell", "resp.", "progress", "est.", "margin", "need",
+        "",
+        if words { "status" } else { "" },
+        "cell",
+        "resp.",
+        "progress",
+        "est.",
+        "margin",
+        "need",
+        "rate/h",
+        "ETA",
     ];
-    if wide {
-        header.push("rate/h");
-    }
-    header.push("ETA");
     if widest_col {
         header.push("widest measure");
     }
     let fixed: u16 = 1
-        + 9
+        + status_width
         + 6
         + (bar_width as u16 + 5)
         + 6
         + 6
         + 6
+        + 6
         + 9
-        + if wide { 6 } else { 0 }
         + if widest_col { 18 } else { 0 };
-    let columns = 9 + u16::from(wide) + u16::from(widest_col);
+    let columns = 10 + u16::from(widest_col);
     let label_width = inner.width.saturating_sub(fixed + columns - 1).max(8);
     let mut widths = vec![
         Constraint::Length(1),
-        Constraint::Length(9),
+        Constraint::Length(status_width),
         Constraint::Length(label_width),
         Constraint::Length(6),
         Constraint::Length(bar_width as u16 + 5),
         Constraint::Length(6),
         Constraint::Length(6),
         Constraint::Length(6),
+        Constraint::Length(6),
+        Constraint::Length(9),
     ];
-    if wide {
-        widths.push(Constraint::Length(6));
-    }
-    widths.push(Constraint::Length(9));
     if widest_col {
         widths.push(Constraint::Length(18));
     }
@@ -508,7 +519,14 @@ fn draw_cells(frame: &mut Frame, area: Rect, app: &App, drawn: &mut Drawn) {
             };
             let mut cells = vec![
                 Cell::from(if is_selected { "▶" } else { " " }),
-                Cell::from(Span::styled(status_text(c.status, c.planned), status_style)),
+                Cell::from(Span::styled(
+                    if words {
+                        status_text(c.status, c.planned)
+                    } else {
+                        status_symbol(c.status, c.planned)
+                    },
+                    status_style,
+                )),
                 Cell::from(fit(&clean(&c.label, 200), label_width as usize)),
                 Cell::from(Line::from(count(c.responses)).alignment(Alignment::Right)),
                 Cell::from(progress),
@@ -519,12 +537,10 @@ fn draw_cells(frame: &mut Frame, area: Rect, app: &App, drawn: &mut Drawn) {
                 Cell::from(Line::from(margin).alignment(Alignment::Right)),
                 Cell::from(Line::from(needed).alignment(Alignment::Right)),
             ];
-            if wide {
-                cells.push(Cell::from(
-                    Line::from(c.rate_per_hour.map_or("—".into(), |r| format!("{r:.1}")))
-                        .alignment(Alignment::Right),
-                ));
-            }
+            cells.push(Cell::from(
+                Line::from(c.rate_per_hour.map_or("—".into(), |r| format!("{r:.1}")))
+                    .alignment(Alignment::Right),
+            ));
             cells.push(Cell::from(eta));
             if widest_col {
                 cells.push(Cell::from(w.map_or(String::new(), |m| clean(&m.name, 18))));
@@ -954,15 +970,31 @@ fn draw_trend(frame: &mut Frame, area: Rect, app: &App, s: &Snapshot, c: &CellVi
 }
 
 /// Every line of the problems page.
-fn problem_lines(app: &App) -> Vec<Line<'static>> {
+fn problem_lines(app: &App, width: usize) -> Vec<Line<'static>> {
     let t = &app.theme;
     let mut lines: Vec<Line> = Vec::new();
+    // A long entry continues on indented lines.
+    let entry = |lines: &mut Vec<Line<'static>>, lead: String, text: &str, style: Style| {
+        let indent = lead.chars().count();
+        let wrapped = report::wrap(text, width.saturating_sub(indent).max(20));
+        for (i, part) in wrapped.lines().enumerate() {
+            let lead = if i == 0 {
+                lead.clone()
+            } else {
+                " ".repeat(indent)
+            };
+            lines.push(Line::from(vec![
+                Span::raw(lead),
+                Span::styled(part.to_string(), style),
+            ]));
+        }
+    };
     let heading = |text: String| Line::from(Span::styled(text, t.heading));
     if let Some(update) = app.feed.as_deref() {
         match &update.reading {
             Reading::HeaderProblem(m) | Reading::Failed(m) => {
                 lines.push(heading("Reading the file".into()));
-                lines.push(Line::from(Span::styled(format!("  {m}"), t.warning)));
+                entry(&mut lines, "  ".into(), m, t.warning);
                 lines.push(Line::from(""));
             }
             Reading::WaitingForFile => {
@@ -992,12 +1024,12 @@ fn problem_lines(app: &App) -> Vec<Line<'static>> {
         listed(s.rejections.len(), s.rows_rejected)
     )));
     for r in &s.rejections {
-        lines.push(Line::from(format!(
-            "  line {:>8}  {:<15} {}",
-            r.line,
-            r.kind,
-            clean(&r.reason, 200)
-        )));
+        entry(
+            &mut lines,
+            format!("  line {:>8}  {:<15} ", r.line, r.kind),
+            &clean(&r.reason, 400),
+            Style::new(),
+        );
     }
     lines.push(Line::from(""));
     lines.push(heading(format!(
@@ -1047,11 +1079,12 @@ fn problem_lines(app: &App) -> Vec<Line<'static>> {
         lines.push(Line::from(""));
         lines.push(heading("Cell warnings".into()));
         for (c, w) in warnings {
-            lines.push(Line::from(format!(
-                "  {}: {}",
-                clean(&c.label, 40),
-                clean(w, 200)
-            )));
+            entry(
+                &mut lines,
+                format!("  {}: ", clean(&c.label, 40)),
+                &clean(w, 400),
+                Style::new(),
+            );
         }
     }
     lines.push(Line::from(""));
@@ -1060,11 +1093,12 @@ fn problem_lines(app: &App) -> Vec<Line<'static>> {
         app.notices.len()
     )));
     for n in app.notices.iter().rev() {
-        lines.push(Line::from(format!(
-            "  {}  {}",
-            moment(n.time, &app.zone),
-            clean(&n.text, 400)
-        )));
+        entry(
+            &mut lines,
+            format!("  {}  ", moment(n.time, &app.zone)),
+            &clean(&n.text, 400),
+            Style::new(),
+        );
     }
     lines
 }
@@ -1076,7 +1110,7 @@ fn draw_problems(frame: &mut Frame, area: Rect, app: &App, drawn: &mut Drawn) {
         .title(" problems: rows, ids, answers, cells and notices ");
     let inner = block.inner(area);
     frame.render_widget(block, area);
-    let lines = problem_lines(app);
+    let lines = problem_lines(app, inner.width as usize);
     drawn.problem_total = lines.len();
     drawn.problem_lines = inner.height as usize;
     let scroll = app

@@ -90,32 +90,27 @@ impl FollowOutput {
 pub fn notice(event: &LiveEvent) -> Option<String> {
     match event {
         LiveEvent::Started | LiveEvent::Counted { .. } => None,
-        LiveEvent::Reset { why, columns } => {
-            let columns = columns
-                .as_ref()
-                .map(|c| format!(" ({c})"))
-                .unwrap_or_default();
-            Some(format!(
-                "the responses file was {}{columns}: counted again from its start",
-                why.word()
-            ))
-        }
+        LiveEvent::Reset { why, columns } => Some(format!(
+            "the responses file was {}{}: counted again from its start",
+            why.word(),
+            in_brackets(columns.as_ref())
+        )),
         LiveEvent::Waiting => Some(
             "the responses file is missing: waiting for it (the last figures stand)".to_string(),
         ),
         LiveEvent::Resumed => Some("the responses file is back".to_string()),
-        LiveEvent::HeaderProblem { message, columns } => {
-            let columns = columns
-                .as_ref()
-                .map(|c| format!(" ({c})"))
-                .unwrap_or_default();
-            Some(format!(
-                "{}{columns}; nothing more is counted until the header fits the study",
-                clean(message, 400)
-            ))
-        }
+        LiveEvent::HeaderProblem { message, columns } => Some(format!(
+            "{}{}; nothing more is counted until the header fits the study",
+            clean(message, 400),
+            in_brackets(columns.as_ref())
+        )),
         LiveEvent::Warning(w) => Some(format!("warning: {w}")),
     }
+}
+
+/// " (columns added: …)", or nothing.
+fn in_brackets(columns: Option<&crate::live::HeaderChange>) -> String {
+    columns.map(|c| format!(" ({c})")).unwrap_or_default()
 }
 
 /// One line: when, how many responses, rejected and duplicate rows, the verdict.
