@@ -479,6 +479,59 @@ impl<W: Write> Write for Marked<'_, W> {
     }
 }
 
+/// What a live run says at its end, from a fresh read of the file as the writer left
+/// it at `clock`'s moment (or the plan's end): the at-risk spells from the event log,
+/// the coverage check, and where the files are.
+pub fn closing(demo: &Demo, clock: &Clock) -> Result<Vec<String>, DemoError> {
+    let end = clock.now().min(demo.plan.end);
+    let study = demo.study()?;
+    let mut lines = vec![String::new()];
+    if let Some(path) = &study.log {
+        lines.extend(at_risk_text(&at_risk_periods(path), end));
+    }
+    let tally = crate::batch::read(&study).map_err(|e| DemoError::Follow(e.to_string()))?;
+    let snapshot = assess::assess(&study, &tally, end);
+    lines.push(String::new());
+    lines.extend(coverage_text(
+        &snapshot,
+        &coverage(&snapshot, &demo.plan.truth),
+    ));
+    lines.push(String::new());
+    lines.push(format!(
+        "The files are kept in {}; try: closeout status {} --as-of {}",
+        demo.dir.display(),
+        demo.study_file.display(),
+        end
+    ));
+    Ok(lines)
+}
+
+/// The live run on a terminal: the dashboard on the simulated clock while the writer
+/// plays the fieldwork, until the user quits (the writer is then stopped where it
+/// is). Times are shown in UTC, as the simulated fieldwork is planned. Returns the
+/// closing lines to print once the terminal is restored.
+pub fn watch(
+    demo: &Demo,
+    speed: f64,
+    theme: crate::dashboard::Theme,
+    on_stop: impl FnOnce(std::sync::mpsc::Sender<crate::dashboard::Event>),
+) -> Result<Vec<String>, DemoError> {
+    let study = demo.study()?;
+    let log = demo.event_log(&study)?;
+    let clock = Clock::simulated(demo.plan.start, speed);
+    let writer = demo.start_writer(clock, || {})?;
+    let options = crate::dashboard::Options {
+        clock,
+        poll_only: false,
+        zone: jiff::tz::TimeZone::UTC,
+        theme,
+    };
+    let shown = crate::dashboard::run(study, log, options, on_stop);
+    writer.stop()?;
+    shown.map_err(DemoError::Output)?;
+    closing(demo, &clock)
+}
+
 /// Play the fieldwork in real time: the paced writer on its own thread, and the
 /// follow loop of [`crate::headless`] on the same simulated clock printing what
 /// `status --follow` prints (each line marked as simulated), until the study is
@@ -504,7 +557,6 @@ pub fn play(
         Ok(l) => l,
         Err(e) => return fail(err, e),
     };
-    let log_path = study.log.clone();
     let clock = Clock::simulated(demo.plan.start, speed);
     let stop = hints.sender();
     let writer = match demo.start_writer(clock, move || {
@@ -525,38 +577,13 @@ pub fn play(
         };
         headless::follow(study, log, options, &clock, hints, &mut marked, err)
     };
-    let writer_result = writer.stop();
-    if let Err(e) = writer_result {
+    if let Err(e) = writer.stop() {
         return fail(err, e);
     }
-    // The last look: a fresh read of the file as the writer left it.
-    let end = clock.now().min(demo.plan.end);
-    let mut closing = vec![String::new()];
-    if let Some(path) = &log_path {
-        closing.extend(at_risk_text(&at_risk_periods(path), end));
-    }
-    match demo.study().and_then(|s| {
-        crate::batch::read(&s)
-            .map(|t| (s, t))
-            .map_err(|e| DemoError::Follow(e.to_string()))
-    }) {
-        Ok((study, tally)) => {
-            let snapshot = assess::assess(&study, &tally, end);
-            closing.push(String::new());
-            closing.extend(coverage_text(
-                &snapshot,
-                &coverage(&snapshot, &demo.plan.truth),
-            ));
-        }
+    let closing = match closing(demo, &clock) {
+        Ok(lines) => lines,
         Err(e) => return fail(err, e),
-    }
-    closing.push(String::new());
-    closing.push(format!(
-        "The files are kept in {}; try: closeout status {} --as-of {}",
-        demo.dir.display(),
-        demo.study_file.display(),
-        end
-    ));
+    };
     match headless::write_lines(&closing, &[], out, err) {
         Ok(()) => code,
         Err(code) => code,

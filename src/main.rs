@@ -210,6 +210,19 @@ fn run_demo(
         printed.err().unwrap_or(0)
     } else {
         match headless::write_lines(&intro, &[], &mut out, &mut std::io::stderr()) {
+            Ok(()) if std::io::stdout().is_terminal() => {
+                match demo::watch(&demo, speed, dashboard::Theme::from_env(), stop_dashboard) {
+                    Ok(closing) => {
+                        headless::write_lines(&closing, &[], &mut out, &mut std::io::stderr())
+                            .err()
+                            .unwrap_or(0)
+                    }
+                    Err(e) => {
+                        eprintln!("closeout: {e}");
+                        1
+                    }
+                }
+            }
             Ok(()) => {
                 let hints = Hints::start(&demo.dir.join(demo::plan::RESPONSES), false, hints::TICK);
                 stop_on_ctrl_c(&hints);
@@ -300,17 +313,7 @@ fn run(cli: Cli) -> Result<Done, Usage> {
                 zone: jiff::tz::TimeZone::system(),
                 theme: dashboard::Theme::from_env(),
             };
-            let on_stop = |stop: std::sync::mpsc::Sender<dashboard::Event>| {
-                // SIGTERM and SIGHUP end the dashboard as q does, restoring the terminal.
-                if let Err(e) = ctrlc::set_handler(move || {
-                    let _ = stop.send(dashboard::Event::Stop);
-                }) {
-                    eprintln!(
-                        "closeout: cannot catch signals ({e}); a kill will leave the terminal as it is"
-                    );
-                }
-            };
-            match dashboard::run(study, log, options, on_stop) {
+            match dashboard::run(study, log, options, stop_dashboard) {
                 Ok(()) => Ok(Done {
                     text: String::new(),
                     code: 0,
@@ -415,6 +418,15 @@ fn follow_without_terminal(
 }
 
 /// Ctrl-C and SIGTERM send a stop on the hints' channel.
+/// SIGTERM and SIGHUP end the dashboard as q does, restoring the terminal.
+fn stop_dashboard(stop: std::sync::mpsc::Sender<dashboard::Event>) {
+    if let Err(e) = ctrlc::set_handler(move || {
+        let _ = stop.send(dashboard::Event::Stop);
+    }) {
+        eprintln!("closeout: cannot catch signals ({e}); a kill will leave the terminal as it is");
+    }
+}
+
 fn stop_on_ctrl_c(hints: &Hints) {
     let stop = hints.sender();
     if let Err(e) = ctrlc::set_handler(move || {

@@ -933,7 +933,7 @@ fn draw_trend(frame: &mut Frame, area: Rect, app: &App, s: &Snapshot, c: &CellVi
                 .labels([format!("{y_min:.1}"), format!("{y_max:.1}")])
                 .style(t.faint),
         )
-        .legend_position(Some(LegendPosition::BottomLeft))
+        .legend_position(Some(LegendPosition::TopRight))
         .hidden_legend_constraints((Constraint::Ratio(1, 2), Constraint::Ratio(1, 2)));
     frame.render_widget(chart, chart_area);
 
