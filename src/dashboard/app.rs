@@ -348,6 +348,11 @@ impl App {
             }
             self.notices.push_back(notice);
         }
+        // The clock on screen never lags the verdict it shows (the feed may look
+        // between two ticks).
+        if update.snapshot.as_of > self.now {
+            self.now = update.snapshot.as_of;
+        }
         let ready = update.snapshot.ready_to_close;
         if update.caught_up_once {
             if self.ready_seen == Some(false) && ready {
