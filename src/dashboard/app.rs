@@ -358,7 +358,9 @@ impl App {
             if self.ready_seen == Some(false) && ready {
                 effects.push(Effect::Bell);
             }
-            if ready && self.ready_seen != Some(true) {
+            // "Since" only for a change seen while watching: a study already ready
+            // at the first read became ready at a moment the dashboard did not see.
+            if ready && self.ready_seen == Some(false) {
                 self.ready_since = Some(update.snapshot.as_of);
             }
             if !ready {
