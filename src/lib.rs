@@ -11,15 +11,19 @@
 //! and sizes from counts; `assess` turns a study and its tally into a `Snapshot`;
 //! `report` writes a snapshot (or a margin or size question) as text, JSON or CSV;
 //! `event_log` appends what changed, and when, to the study's event log; `clock` is
-//! the injected "now" (the wall clock, a fixed moment, or the demo's simulated time).
+//! the injected "now" (the wall clock, a fixed moment, or the demo's simulated time);
+//! `headless` is the follow loop without a terminal (`status --follow`); `demo` is
+//! the simulated fieldwork of an invented study (`closeout demo`).
 
 pub mod assess;
 pub mod batch;
 pub mod bounds;
 pub mod clock;
 pub mod dashboard;
+pub mod demo;
 pub mod event_log;
 pub mod follow;
+pub mod headless;
 pub mod hints;
 pub mod live;
 pub mod report;

@@ -10,9 +10,8 @@ use closeout::bounds::{self, Level, Query, SizeQuery};
 use closeout::clock::Clock;
 use closeout::event_log::EventLog;
 use closeout::hints::{self, Hint, Hints};
-use closeout::live::Live;
 use closeout::study::Study;
-use closeout::{assess, batch, dashboard, report};
+use closeout::{assess, batch, dashboard, demo, headless, report};
 
 /// Follow survey fieldwork: margins of error per quota cell and when collection can close.
 #[derive(Parser)]
@@ -94,6 +93,29 @@ enum Command {
         #[arg(long)]
         poll: bool,
     },
+    /// Simulated fieldwork of an invented study, to watch the whole job work.
+    Demo {
+        /// Seed of the simulation: the same seed plays the same fieldwork.
+        #[arg(long, default_value_t = demo::DEFAULT_SEED)]
+        seed: u64,
+        /// Simulated seconds per real second.
+        #[arg(long, default_value_t = demo::DEFAULT_SPEED)]
+        speed: f64,
+        /// Folder for the demo's files: new or empty (default: a new temporary folder).
+        #[arg(long)]
+        dir: Option<PathBuf>,
+        /// No waiting and no terminal: every file action in order, printing the
+        /// verdict changes at their simulated moments.
+        #[arg(long, conflicts_with_all = ["write", "speed"])]
+        headless: bool,
+        /// With --headless: stop before the first action after this simulated moment
+        /// (RFC 3339), or this long after the start (such as 30h).
+        #[arg(long, requires = "headless")]
+        until: Option<String>,
+        /// Only write the study and N responses into --dir, fast (for benchmarks).
+        #[arg(long, value_name = "N", requires = "dir", conflicts_with = "speed")]
+        write: Option<u64>,
+    },
 }
 
 #[derive(Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
@@ -112,6 +134,108 @@ struct Done {
 /// An error in what the user asked for or gave us (arguments, the study file, the
 /// responses file): exit code 2.
 struct Usage(String);
+
+/// The moment `--until` names: an RFC 3339 time, or a duration after `start`.
+fn until_moment(text: &str, start: jiff::Timestamp) -> Result<jiff::Timestamp, Usage> {
+    if let Ok(t) = text.parse::<jiff::Timestamp>() {
+        return Ok(t);
+    }
+    text.parse::<jiff::SignedDuration>()
+        .ok()
+        .and_then(|d| start.checked_add(d).ok())
+        .ok_or_else(|| {
+            Usage(format!(
+                "--until '{text}' is neither an RFC 3339 time such as 2026-03-03T12:00:00Z nor a duration such as 30h"
+            ))
+        })
+}
+
+/// `closeout demo`.
+fn run_demo(
+    seed: u64,
+    speed: f64,
+    dir: Option<PathBuf>,
+    headless: bool,
+    until: Option<String>,
+    write: Option<u64>,
+) -> Result<Done, Usage> {
+    let usage = |e: demo::DemoError| Usage(e.to_string());
+    if let Some(rows) = write {
+        let dir = demo::fresh_dir(dir.as_deref()).map_err(usage)?;
+        let began = std::time::Instant::now();
+        let w = demo::bulk::write(&dir, rows, seed).map_err(usage)?;
+        let text = format!(
+            "wrote {} rows ({} bytes, about {} a row; {} malformed, {} repeated ids) of INVENTED data to {} in {:.1} s\nstudy: {}\n",
+            w.rows,
+            w.bytes,
+            w.bytes / w.rows.max(1),
+            w.malformed,
+            w.duplicates,
+            dir.join(demo::plan::RESPONSES).display(),
+            began.elapsed().as_secs_f64(),
+            dir.join("study.toml").display()
+        );
+        return Ok(Done { text, code: 0 });
+    }
+    if !(speed.is_finite() && speed > 0.0) {
+        return Err(Usage(format!(
+            "--speed '{speed}' must be a number above 0 (simulated seconds per real second)"
+        )));
+    }
+    let plan = demo::plan(seed).map_err(|e| Usage(e.to_string()))?;
+    let until = match until {
+        Some(text) => Some(until_moment(&text, plan.start)?),
+        None => None,
+    };
+    let dir = demo::fresh_dir(dir.as_deref()).map_err(usage)?;
+    let demo = demo::prepare(&dir, plan).map_err(usage)?;
+    let mut out = std::io::stdout();
+    let intro = demo.introduction(if headless { None } else { Some(speed) });
+    let code = if headless {
+        let printed = headless::write_lines(&intro, &[], &mut out, &mut std::io::stderr())
+            .and_then(|()| match demo::run_headless(&demo, until, &mut out) {
+                Ok(_) => Ok(()),
+                Err(demo::DemoError::Output(e)) if e.kind() == std::io::ErrorKind::BrokenPipe => {
+                    Err(0)
+                }
+                Err(demo::DemoError::Output(e)) => {
+                    eprintln!("closeout: cannot write the output: {e}");
+                    Err(1)
+                }
+                Err(e) => {
+                    eprintln!("closeout: {e}");
+                    Err(2)
+                }
+            });
+        printed.err().unwrap_or(0)
+    } else {
+        match headless::write_lines(&intro, &[], &mut out, &mut std::io::stderr()) {
+            Ok(()) if std::io::stdout().is_terminal() => {
+                match demo::watch(&demo, speed, dashboard::Theme::from_env(), stop_dashboard) {
+                    Ok(closing) => {
+                        headless::write_lines(&closing, &[], &mut out, &mut std::io::stderr())
+                            .err()
+                            .unwrap_or(0)
+                    }
+                    Err(e) => {
+                        eprintln!("closeout: {e}");
+                        1
+                    }
+                }
+            }
+            Ok(()) => {
+                let hints = Hints::start(&demo.dir.join(demo::plan::RESPONSES), false, hints::TICK);
+                stop_on_ctrl_c(&hints);
+                demo::play(&demo, speed, &hints, &mut out, &mut std::io::stderr())
+            }
+            Err(code) => code,
+        }
+    };
+    Ok(Done {
+        text: String::new(),
+        code,
+    })
+}
 
 fn run(cli: Cli) -> Result<Done, Usage> {
     let usage = |e: bounds::BoundsError| Usage(e.to_string());
@@ -168,11 +292,20 @@ fn run(cli: Cli) -> Result<Done, Usage> {
             };
             Ok(Done { text, code: 0 })
         }
+        Command::Demo {
+            seed,
+            speed,
+            dir,
+            headless,
+            until,
+            write,
+        } => run_demo(seed, speed, dir, headless, until, write),
         Command::Watch { study, poll } => {
             let study = Study::load(&study).map_err(|e| Usage(e.to_string()))?;
             let log = open_log(&study)?;
             if !std::io::stdout().is_terminal() {
-                return Ok(follow_status(study, log, false, false, poll, false));
+                let options = headless::FollowOptions::default();
+                return Ok(follow_without_terminal(study, log, options, poll));
             }
             let options = dashboard::Options {
                 clock: Clock::System,
@@ -180,17 +313,7 @@ fn run(cli: Cli) -> Result<Done, Usage> {
                 zone: jiff::tz::TimeZone::system(),
                 theme: dashboard::Theme::from_env(),
             };
-            let on_stop = |stop: std::sync::mpsc::Sender<dashboard::Event>| {
-                // SIGTERM and SIGHUP end the dashboard as q does, restoring the terminal.
-                if let Err(e) = ctrlc::set_handler(move || {
-                    let _ = stop.send(dashboard::Event::Stop);
-                }) {
-                    eprintln!(
-                        "closeout: cannot catch signals ({e}); a kill will leave the terminal as it is"
-                    );
-                }
-            };
-            match dashboard::run(study, log, options, on_stop) {
+            match dashboard::run(study, log, options, stop_dashboard) {
                 Ok(()) => Ok(Done {
                     text: String::new(),
                     code: 0,
@@ -226,14 +349,12 @@ fn run(cli: Cli) -> Result<Done, Usage> {
                 };
                 let study = Study::load(&study).map_err(|e| Usage(e.to_string()))?;
                 let log = open_log(&study)?;
-                return Ok(follow_status(
-                    study,
-                    log,
+                let options = headless::FollowOptions {
                     json,
                     until_ready,
-                    poll,
                     exit_code,
-                ));
+                };
+                return Ok(follow_without_terminal(study, log, options, poll));
             }
             let as_of = match as_of {
                 Some(text) => text.parse::<jiff::Timestamp>().map_err(|e| {
@@ -271,118 +392,47 @@ fn open_log(study: &Study) -> Result<Option<EventLog>, Usage> {
     }
 }
 
-/// Print lines, flushing. `Err` carries the exit code when standard output is gone:
-/// 0 for a closed pipe (not an error), 1 for another failed write.
-fn print(lines: &[String], err: &[String]) -> Result<(), u8> {
-    for line in err {
-        eprintln!("{line}");
-    }
-    let mut out = std::io::stdout().lock();
-    let written = lines
-        .iter()
-        .try_for_each(|line| writeln!(out, "{line}"))
-        .and_then(|()| out.flush());
-    match written {
-        Ok(()) => Ok(()),
-        Err(e) if e.kind() == std::io::ErrorKind::BrokenPipe => Err(0),
-        Err(e) => {
-            eprintln!("closeout: cannot write the output: {e}");
-            Err(1)
-        }
+/// `status --follow`, and `watch` without a terminal: the library's follow loop on
+/// the wall clock, stopped by Ctrl-C or SIGTERM.
+fn follow_without_terminal(
+    study: Study,
+    log: Option<EventLog>,
+    options: headless::FollowOptions,
+    poll: bool,
+) -> Done {
+    let hints = Hints::start(&study.source.file, poll, hints::TICK);
+    stop_on_ctrl_c(&hints);
+    let code = headless::follow(
+        study,
+        log,
+        options,
+        &Clock::System,
+        &hints,
+        &mut std::io::stdout(),
+        &mut std::io::stderr(),
+    );
+    Done {
+        text: String::new(),
+        code,
     }
 }
 
-/// `status --follow`: one loop over one channel of hints; the loop owns all state.
-fn follow_status(
-    study: Study,
-    mut log: Option<EventLog>,
-    json: bool,
-    until_ready: bool,
-    poll: bool,
-    exit_code: bool,
-) -> Done {
-    let hints: Hints = Hints::start(&study.source.file, poll, hints::TICK);
-    if let Some(e) = &hints.watch_error {
-        eprintln!(
-            "closeout: cannot watch the folder of the responses file ({e}): looking every second instead"
-        );
+/// Ctrl-C and SIGTERM send a stop on the hints' channel.
+/// SIGTERM and SIGHUP end the dashboard as q does, restoring the terminal.
+fn stop_dashboard(stop: std::sync::mpsc::Sender<dashboard::Event>) {
+    if let Err(e) = ctrlc::set_handler(move || {
+        let _ = stop.send(dashboard::Event::Stop);
+    }) {
+        eprintln!("closeout: cannot catch signals ({e}); a kill will leave the terminal as it is");
     }
+}
+
+fn stop_on_ctrl_c(hints: &Hints) {
     let stop = hints.sender();
     if let Err(e) = ctrlc::set_handler(move || {
         let _ = stop.send(Hint::Stop);
     }) {
         eprintln!("closeout: cannot catch Ctrl-C ({e}); it will end the program at once");
-    }
-    let mut live = Live::new(study);
-    let mut output = report::FollowOutput::new(json);
-    let mut last_error: Option<String> = None;
-    let mut last_log_error: Option<String> = None;
-    let mut snapshot = assess::assess(live.study(), live.tally(), jiff::Timestamp::now());
-    let mut hint = Some(Hint::File);
-    loop {
-        match hint {
-            None | Some(Hint::Stop) => {
-                let text = output.last_state(&snapshot);
-                let code = match print(&[text], &[]) {
-                    Ok(()) => u8::from(exit_code && !snapshot.ready_to_close),
-                    Err(code) => code,
-                };
-                return Done {
-                    text: String::new(),
-                    code,
-                };
-            }
-            Some(Hint::File | Hint::Tick) => {}
-        }
-        // Fold a burst of hints into one look; a stop waiting in it still counts.
-        let mut stopping = false;
-        while let Some(h) = hints.try_next() {
-            stopping |= h == Hint::Stop;
-        }
-        let events = match live.poll() {
-            Ok(events) => {
-                last_error = None;
-                events
-            }
-            Err(e) => {
-                let message = format!("closeout: {e}");
-                if last_error.as_deref() != Some(message.as_str()) {
-                    eprintln!("{message}");
-                    last_error = Some(message);
-                }
-                Vec::new()
-            }
-        };
-        snapshot = assess::assess(live.study(), live.tally(), jiff::Timestamp::now());
-        if let Some(l) = &mut log
-            && let Err(e) = l.record(&events, &snapshot)
-        {
-            let message = format!("closeout: {e}");
-            if last_log_error.as_deref() != Some(message.as_str()) {
-                eprintln!("{message}");
-                last_log_error = Some(message);
-            }
-        }
-        let lines = output.update(&events, &snapshot);
-        if let Err(code) = print(&lines.out, &lines.err) {
-            return Done {
-                text: String::new(),
-                code,
-            };
-        }
-        if until_ready && snapshot.ready_to_close {
-            return Done {
-                text: String::new(),
-                code: 0,
-            };
-        }
-        hint = if stopping {
-            Some(Hint::Stop)
-        } else if !live.caught_up() {
-            Some(Hint::File)
-        } else {
-            hints.next()
-        };
     }
 }
 

@@ -131,7 +131,7 @@ fn study_in(dir: &Path, responses: &str) {
 /// The shell line tmux runs: the dashboard, then what the terminal looks like after.
 fn command(dir: &Path) -> String {
     format!(
-        "cd '{}' && '{}' watch study.toml; echo \"EXITED $?\"; stty -a | tr ' ;' '\\n\\n' | grep -x -e '-\\?icanon' -e '-\\?echo'; sleep 600",
+        "cd '{}' && '{}' watch study.toml; echo \"EXITED $?\"; stty -a | tr ' ;' '\\n\\n' | grep -x -e '-\\?icanon' -e '-\\?echo'; echo 'SHELL DONE'; sleep 600",
         dir.display(),
         env!("CARGO_BIN_EXE_closeout")
     )
@@ -165,7 +165,8 @@ fn the_dashboard_follows_appends_and_restores_the_terminal() {
 /// the dashboard's screen is gone (the alternate screen was left), line editing and
 /// echo are on.
 fn assert_restored(tmux: &Tmux) {
-    let screen = tmux.wait_for("EXITED 0");
+    let screen = tmux.wait_for("SHELL DONE");
+    assert!(screen.contains("EXITED 0"), "{screen}");
     assert!(
         !screen.contains("counted"),
         "the dashboard is still on screen:\n{screen}"
@@ -240,4 +241,25 @@ fn sigterm_ends_the_dashboard_and_restores_the_terminal() {
         .unwrap();
     assert!(killed.success());
     assert_restored(&tmux);
+}
+
+/// `closeout demo` on a terminal: the dashboard over the simulated fieldwork, to the
+/// ready banner; after q, the closing check is printed on the restored terminal.
+#[test]
+fn the_demo_opens_the_dashboard_and_reaches_ready_to_close() {
+    let dir = tempfile::tempdir().unwrap();
+    let files = dir.path().join("demo");
+    let command = format!(
+        "'{}' demo --speed 200000 --dir '{}'; echo \"EXITED $?\"; sleep 600",
+        env!("CARGO_BIN_EXE_closeout"),
+        files.display()
+    );
+    let tmux = Tmux::start("demo", 100, 30, &command, &[]);
+    let screen = tmux.wait_for("READY TO CLOSE");
+    assert!(screen.contains("simulated clock"), "{screen}");
+    assert!(screen.contains("all 24 planned cells met"), "{screen}");
+    tmux.keys("q");
+    let screen = tmux.wait_for("EXITED 0");
+    assert!(screen.contains("A small honest check"), "{screen}");
+    assert!(files.join("study.toml").is_file());
 }

@@ -348,12 +348,19 @@ impl App {
             }
             self.notices.push_back(notice);
         }
+        // The clock on screen never lags the verdict it shows (the feed may look
+        // between two ticks).
+        if update.snapshot.as_of > self.now {
+            self.now = update.snapshot.as_of;
+        }
         let ready = update.snapshot.ready_to_close;
         if update.caught_up_once {
             if self.ready_seen == Some(false) && ready {
                 effects.push(Effect::Bell);
             }
-            if ready && self.ready_seen != Some(true) {
+            // "Since" only for a change seen while watching: a study already ready
+            // at the first read became ready at a moment the dashboard did not see.
+            if ready && self.ready_seen == Some(false) {
                 self.ready_since = Some(update.snapshot.as_of);
             }
             if !ready {

@@ -682,7 +682,7 @@ fn draw_cell(frame: &mut Frame, area: Rect, app: &App) {
         .get(app.measure.min(c.measures.len().saturating_sub(1)));
     let methods_height = 3 + 1 + Method::ALL.len() as u16 + c.warnings.len().min(2) as u16;
     let side_by_side = inner.width >= 150;
-    let stacked = !side_by_side && inner.height >= methods_height + 14;
+    let stacked = !side_by_side && inner.height >= methods_height + 9;
     let (methods_area, trend_area) = if side_by_side {
         let [a, b] = Layout::horizontal([Constraint::Length(84), Constraint::Fill(1)]).areas(inner);
         (Some(a), Some(b))
@@ -884,7 +884,13 @@ fn draw_trend(frame: &mut Frame, area: Rect, app: &App, s: &Snapshot, c: &CellVi
         (0.0, (c.responses as f64).max(1.0))
     };
     let ys = observed.iter().chain(&projected).map(|p| p.1);
-    let y_max = ys.clone().fold(target, f64::max) * 1.1;
+    // The first few responses give huge margins: the top leaves room for the margin
+    // now (and the curve above it runs off the top) rather than squashing the rest.
+    let now_margin = projected
+        .first()
+        .or(observed.last())
+        .map_or(target, |p| p.1.max(target));
+    let y_max = (ys.clone().fold(target, f64::max) * 1.1).min(now_margin * 1.6);
     let y_min = ys.fold(target, f64::min) * 0.8;
     let target_line = [(x_min, target), (x_max, target)];
     let mut datasets = vec![
@@ -933,7 +939,7 @@ fn draw_trend(frame: &mut Frame, area: Rect, app: &App, s: &Snapshot, c: &CellVi
                 .labels([format!("{y_min:.1}"), format!("{y_max:.1}")])
                 .style(t.faint),
         )
-        .legend_position(Some(LegendPosition::BottomLeft))
+        .legend_position(Some(LegendPosition::TopRight))
         .hidden_legend_constraints((Constraint::Ratio(1, 2), Constraint::Ratio(1, 2)));
     frame.render_widget(chart, chart_area);
 
