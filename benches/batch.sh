@@ -7,10 +7,12 @@
 #   ROWS="1000000" RUNS=3 bash benches/batch.sh
 #   BIN=/path/to/other/closeout bash benches/batch.sh   # time another build
 #
-# Needs GNU time (/usr/bin/time; Debian package `time`). The files (invented data,
-# about 86 bytes a row, 24 cells, 0.1 % malformed rows and 0.1 % duplicate ids) are
-# written once under target/bench-data/ and kept there; each is read once before
-# timing so the figures are for a warm page cache.
+# Needs GNU time (/usr/bin/time; Debian package `time`). The files are the demo's
+# invented study (`closeout demo --write N`: about 86 bytes a row, 10 columns, 24
+# cells, 3 measures, ids and times, 0.1 % malformed rows and 0.1 % repeated ids),
+# written once under target/bench-data/demo-N/ and kept there, with a copy of its
+# study file without the id column; each file is read once before timing so the
+# figures are for a warm page cache.
 set -euo pipefail
 cd "$(dirname "$0")/.."
 ROWS=${ROWS:-"1000000 10000000"}
@@ -19,12 +21,17 @@ DATA=${DATA:-target/bench-data}
 TIME=/usr/bin/time
 [ -x "$TIME" ] || { echo "needs GNU time: apt-get install time" >&2; exit 2; }
 
-if [ -z "${BIN:-}" ]; then
-  cargo build --release --locked --quiet
-  BIN=target/release/closeout
-fi
-# shellcheck disable=SC2086
-cargo bench --quiet --bench write_responses -- "$DATA" $ROWS >/dev/null
+cargo build --release --locked --quiet
+GEN=target/release/closeout
+BIN=${BIN:-$GEN}
+for n in $ROWS; do
+  dir="$DATA/demo-$n"
+  if [ ! -f "$dir/responses.csv" ] || [ ! -f "$dir/study.toml" ]; then
+    rm -rf "$dir"
+    "$GEN" demo --write "$n" --dir "$dir" >/dev/null
+  fi
+  grep -v '^id = ' "$dir/study.toml" >"$dir/study-no-ids.toml"
+done
 
 # median of numbers on stdin
 median() { sort -g | awk '{a[NR]=$1} END {print a[int((NR+1)/2)]}'; }
@@ -46,14 +53,15 @@ time_runs() {
 
 printf '%-10s %-22s %8s %9s %11s %9s\n' rows what seconds "MB/s" "rows/s" "peak MiB"
 for n in $ROWS; do
-  csv="$DATA/responses-$n.csv"
+  dir="$DATA/demo-$n"
+  csv="$dir/responses.csv"
   bytes=$(stat -c %s "$csv")
   cat "$csv" >/dev/null  # warm the page cache
   for what in "wc -l" "status, ids" "status, no ids"; do
     case "$what" in
       "wc -l") read -r s k < <(time_runs wc -l "$csv") ;;
-      "status, ids") read -r s k < <(time_runs "$BIN" status "$DATA/study-$n.toml" --as-of 2026-06-01T00:00:00Z) ;;
-      "status, no ids") read -r s k < <(time_runs "$BIN" status "$DATA/study-$n-no-ids.toml" --as-of 2026-06-01T00:00:00Z) ;;
+      "status, ids") read -r s k < <(time_runs "$BIN" status "$dir/study.toml" --as-of 2026-03-10T00:00:00Z) ;;
+      "status, no ids") read -r s k < <(time_runs "$BIN" status "$dir/study-no-ids.toml" --as-of 2026-03-10T00:00:00Z) ;;
     esac
     awk -v n="$n" -v w="$what" -v s="$s" -v k="$k" -v b="$bytes" 'BEGIN {
       t = (s > 0.005 ? s : 0.005);

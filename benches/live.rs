@@ -9,13 +9,12 @@
 //!   live case sees it: before each timed call every cell gets one more response, so
 //!   every cell's n is new and nothing memoised per n helps.
 //!
-//! Medians of RUNS runs. Speed is measured here, never asserted in a test. The data
-//! are invented (see `support/responses.rs`).
+//! Medians of RUNS runs. Speed is measured here, never asserted in a test. B2's file
+//! is the demo's invented study (`closeout::demo::bulk::write`, as `closeout demo
+//! --write`), written once under `target/bench-data/`: N + 15,000 rows, of which the
+//! followed copy starts with the first N and each append takes the next 1,000.
 
 #![allow(clippy::unwrap_used, clippy::expect_used)]
-
-#[path = "support/responses.rs"]
-mod responses;
 
 use std::io::Write;
 use std::path::Path;
@@ -38,18 +37,53 @@ fn ms(seconds: f64) -> String {
     format!("{:.2} ms", seconds * 1e3)
 }
 
-fn b2(rows: u64) {
-    let dir = Path::new("target/bench-data");
-    let (csv, _, _) = responses::write_study(dir, rows).expect("written");
-    // Follow a copy, which the appends grow.
-    let followed = dir.join(format!("followed-{rows}.csv"));
-    std::fs::copy(&csv, &followed).expect("copied");
-    let study_path = dir.join(format!("followed-{rows}.toml"));
-    std::fs::write(&study_path, responses::study_text(&followed, true)).expect("written");
-    let study = Study::load(&study_path).expect("a valid study");
-    let as_of: jiff::Timestamp = "2026-06-01T00:00:00Z".parse().unwrap();
+/// SplitMix64, for B3's answers.
+struct Mix(u64);
 
-    let bytes = std::fs::metadata(&followed).unwrap().len();
+impl Mix {
+    fn below(&mut self, n: u64) -> u64 {
+        self.0 = self.0.wrapping_add(0x9e37_79b9_7f4a_7c15);
+        let mut z = self.0;
+        z = (z ^ (z >> 30)).wrapping_mul(0xbf58_476d_1ce4_e5b9);
+        z = (z ^ (z >> 27)).wrapping_mul(0x94d0_49bb_1331_11eb);
+        (((z ^ (z >> 31)) as u128 * n as u128) >> 64) as u64
+    }
+}
+
+fn b2(rows: u64) {
+    let source = Path::new("target/bench-data").join(format!("demo-source-{rows}"));
+    let extra = RUNS as u64 * 1000;
+    let csv = source.join("responses.csv");
+    let lines_wanted = (rows + extra + 1) as usize;
+    let text = match std::fs::read(&csv) {
+        Ok(text) if text.iter().filter(|&&b| b == b'\n').count() == lines_wanted => text,
+        _ => {
+            std::fs::remove_dir_all(&source).ok();
+            std::fs::create_dir_all(&source).unwrap();
+            closeout::demo::bulk::write(&source, rows + extra, closeout::demo::DEFAULT_SEED)
+                .expect("written");
+            std::fs::read(&csv).unwrap()
+        }
+    };
+    // Line starts: the followed copy is the header and the first `rows` rows.
+    let ends: Vec<usize> = text
+        .iter()
+        .enumerate()
+        .filter(|&(_, &b)| b == b'\n')
+        .map(|(i, _)| i + 1)
+        .collect();
+    let cut = ends[rows as usize];
+    let dir = Path::new("target/bench-data").join(format!("demo-followed-{rows}"));
+    std::fs::remove_dir_all(&dir).ok();
+    std::fs::create_dir_all(&dir).unwrap();
+    let followed = dir.join("responses.csv");
+    std::fs::write(&followed, &text[..cut]).unwrap();
+    let study_text = std::fs::read_to_string(source.join("study.toml")).unwrap();
+    std::fs::write(dir.join("study.toml"), study_text).unwrap();
+    let study = Study::load(&dir.join("study.toml")).expect("a valid study");
+    let as_of: jiff::Timestamp = "2026-03-10T00:00:00Z".parse().unwrap();
+
+    let bytes = cut as f64;
     let start = Instant::now();
     let mut live = Live::new(study.clone());
     let mut polls = 0;
@@ -63,9 +97,8 @@ fn b2(rows: u64) {
     let first = start.elapsed().as_secs_f64();
     assert_eq!(live.tally().rows_read, rows);
     println!(
-        "B2 {rows} rows: first read {:.2} s ({:.0} MB/s, {polls} polls)",
-        first,
-        bytes as f64 / first / 1e6
+        "B2 {rows} rows: first read {first:.2} s ({:.0} MB/s, {polls} polls)",
+        bytes / first / 1e6
     );
     let _ = assess(&study, live.tally(), as_of);
 
@@ -73,15 +106,14 @@ fn b2(rows: u64) {
         .append(true)
         .open(&followed)
         .unwrap();
-    let mut block = Vec::new();
     let mut times = Vec::new();
     let mut poll_times = Vec::new();
-    for run in 0..RUNS as u64 {
-        block.clear();
-        responses::write_rows(&mut block, responses::SEED, rows + run * 1000, 1000).unwrap();
+    for run in 0..RUNS {
+        let from = ends[rows as usize + run * 1000];
+        let to = ends[rows as usize + (run + 1) * 1000];
         let before = live.tally().rows_read;
         let start = Instant::now();
-        file.write_all(&block).unwrap();
+        file.write_all(&text[from..to]).unwrap();
         loop {
             live.poll().expect("readable");
             if live.caught_up() {
@@ -101,7 +133,7 @@ fn b2(rows: u64) {
         ms(median(times)),
         ms(median(poll_times))
     );
-    std::fs::remove_file(&followed).ok();
+    std::fs::remove_dir_all(&dir).ok();
 }
 
 /// A study of 100 cells (column `cell`, values c000 … c099) and three measures; every
@@ -128,10 +160,10 @@ fn b3() {
     let study = b3_study();
     let layout: Layout = study.layout(&["cell", "qa", "qb", "qc"]).unwrap();
     let mut tally = Tally::new(3);
-    let mut rng = responses::Mix::new(7);
+    let mut rng = Mix(7);
     let mut record = csv::ByteRecord::new();
     let mut line = 2;
-    let mut add = |tally: &mut Tally, cell: u64, rng: &mut responses::Mix| {
+    let mut add = |tally: &mut Tally, cell: u64, rng: &mut Mix| {
         record.clear();
         record.push_field(format!("c{cell:03}").as_bytes());
         for p in [30, 50, 80] {

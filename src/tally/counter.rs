@@ -486,12 +486,12 @@ impl Weights {
 }
 
 /// The time in `raw` (trimmed, not blank) as `jiff` parses it, or `None` when it is
-/// not a valid time. The usual form `YYYY-MM-DDTHH:MM:SSZ` with hours 00–23 and
-/// minutes and seconds 00–59 is computed from the start of its hour, which `jiff`
-/// parses once per hour (so a date `jiff` refuses is refused here too); any other
-/// form goes to `jiff` whole.
+/// not a valid time. The usual form `YYYY-MM-DDTHH:MM:SS[.f…]Z` (hours 00–23, minutes
+/// and seconds 00–59, one to nine digits of fraction) is computed from the start of
+/// its hour, which `jiff` parses once per hour (so a date `jiff` refuses is refused
+/// here too); any other form goes to `jiff` whole.
 fn time_of(hour: &mut Option<([u8; 13], Option<i64>)>, raw: &[u8]) -> Option<Timestamp> {
-    if let Some((prefix, within)) = usual_form(raw) {
+    if let Some((prefix, within, nanos)) = usual_form(raw) {
         let start = match hour {
             Some((p, start)) if *p == prefix => *start,
             _ => {
@@ -505,23 +505,36 @@ fn time_of(hour: &mut Option<([u8; 13], Option<i64>)>, raw: &[u8]) -> Option<Tim
                 start
             }
         };
-        return start.and_then(|s| Timestamp::from_second(s + within).ok());
+        return start.and_then(|s| Timestamp::new(s + within, nanos).ok());
     }
     std::str::from_utf8(raw).ok()?.parse::<Timestamp>().ok()
 }
 
-/// `YYYY-MM-DDTHH:MM:SSZ` split into the hour prefix and the seconds within the hour,
-/// when `b` has exactly that form with HH ≤ 23, MM ≤ 59 and SS ≤ 59.
-fn usual_form(b: &[u8]) -> Option<([u8; 13], i64)> {
-    if b.len() != 20 {
+/// `YYYY-MM-DDTHH:MM:SS[.f…]Z` split into the hour prefix, the seconds within the hour
+/// and the nanoseconds, when `b` has exactly that form with HH ≤ 23, MM ≤ 59, SS ≤ 59
+/// and one to nine digits after a `.`.
+fn usual_form(b: &[u8]) -> Option<([u8; 13], i64, i32)> {
+    if b.len() < 20 || b.len() == 21 || b.len() > 30 || b.last() != Some(&b'Z') {
         return None;
     }
     let digits = [0, 1, 2, 3, 5, 6, 8, 9, 11, 12, 14, 15, 17, 18];
     if !digits.iter().all(|&i| b[i].is_ascii_digit())
-        || (b[4], b[7], b[10], b[13], b[16], b[19]) != (b'-', b'-', b'T', b':', b':', b'Z')
+        || (b[4], b[7], b[10], b[13], b[16]) != (b'-', b'-', b'T', b':', b':')
     {
         return None;
     }
+    let fraction = &b[19..b.len() - 1];
+    let nanos = match fraction.split_first() {
+        None => 0,
+        Some((b'.', ds)) if ds.iter().all(u8::is_ascii_digit) => {
+            let mut n: i32 = 0;
+            for i in 0..9 {
+                n = n * 10 + ds.get(i).map_or(0, |d| i32::from(d - b'0'));
+            }
+            n
+        }
+        _ => return None,
+    };
     let two = |i: usize| i64::from(b[i] - b'0') * 10 + i64::from(b[i + 1] - b'0');
     let (hh, mm, ss) = (two(11), two(14), two(17));
     if hh > 23 || mm > 59 || ss > 59 {
@@ -529,7 +542,7 @@ fn usual_form(b: &[u8]) -> Option<([u8; 13], i64)> {
     }
     let mut prefix = [0u8; 13];
     prefix.copy_from_slice(&b[..13]);
-    Some((prefix, mm * 60 + ss))
+    Some((prefix, mm * 60 + ss, nanos))
 }
 
 /// A small fast hash for the cell cache's keys (a few bytes each, not chosen by an
