@@ -388,7 +388,14 @@ impl Reader {
 /// Whether a record repeats the header (a second export appended to the first,
 /// perhaps with its own byte-order mark).
 fn same_as_header(record: &Fields<'_>, header: &ByteRecord) -> bool {
+    // The bytes of the fields, together: the header's, or 3 more with a byte-order mark.
+    let total = match record.ends.last() {
+        Some(&last) => last - record.gap * (record.ends.len() - 1),
+        None => 0,
+    };
+    let header_total = header.as_slice().len();
     record.len() == header.len()
+        && (total == header_total || total == header_total + BOM.len())
         && header.iter().enumerate().all(|(i, theirs)| {
             let mine = record.get(i).unwrap_or_default();
             let mine = if i == 0 {

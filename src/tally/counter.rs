@@ -552,15 +552,30 @@ struct Mix(u64);
 
 impl Hasher for Mix {
     fn write(&mut self, bytes: &[u8]) {
-        for chunk in bytes.chunks(8) {
+        let mut chunks = bytes.chunks_exact(8);
+        for chunk in &mut chunks {
             let mut word = [0u8; 8];
-            word[..chunk.len()].copy_from_slice(chunk);
-            self.0 = (self.0.rotate_left(5) ^ u64::from_le_bytes(word))
-                .wrapping_mul(0x517c_c1b7_2722_0a95);
+            word.copy_from_slice(chunk);
+            self.eat(u64::from_le_bytes(word));
+        }
+        let tail = chunks.remainder();
+        if !tail.is_empty() {
+            // Shifted in byte by byte (see `pack`).
+            let word = tail
+                .iter()
+                .enumerate()
+                .fold(0u64, |w, (i, &b)| w | u64::from(b) << (8 * i));
+            self.eat(word);
         }
     }
     fn finish(&self) -> u64 {
         self.0 ^ (self.0 >> 29)
+    }
+}
+
+impl Mix {
+    fn eat(&mut self, word: u64) {
+        self.0 = (self.0.rotate_left(5) ^ word).wrapping_mul(0x517c_c1b7_2722_0a95);
     }
 }
 
