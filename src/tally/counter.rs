@@ -4,7 +4,7 @@
 //! - A record whose every check passes is read in place: the cell is found from its
 //!   raw values through a small cache (raw bytes → cell), answers are classified
 //!   through a cache per measure (raw answer → yes / no / missing / unexpected), times
-//!   in the usual `YYYY-MM-DDTHH:MM:SSZ` form are computed from a cached start of their
+//!   in the usual `YYYY-MM-DDTHH:MM:SS[.f…]Z` form are computed from a cached start of their
 //!   hour, and the cell's sums go to a staging copy of the cell, merged into the tally
 //!   by [`Counter::flush`] (exact sums, so the grouping does not change a bit).
 //! - Anything else — a wrong field count, text that is not UTF-8, a bad weight or time
