@@ -5,15 +5,19 @@
 //!   raw values through a small cache (raw bytes → cell), answers are classified
 //!   through a cache per measure (raw answer → yes / no / missing / unexpected), times
 //!   in the usual `YYYY-MM-DDTHH:MM:SS[.f…]Z` form are computed from a cached start of their
-//!   hour, and the cell's sums go to a staging copy of the cell, merged into the tally
-//!   by [`Counter::flush`] (exact sums, so the grouping does not change a bit).
+//!   hour, and the id is hashed. Records then wait in batches of [`BATCH`]: the id
+//!   set's slot of each waiting id is loaded first (so the memory fetches overlap),
+//!   then the records are counted in file order. A cell's sums go to a staging copy of
+//!   the cell (counts per measure and weight), merged into the tally by
+//!   [`Counter::flush`] (exact sums, so the grouping does not change a bit).
 //! - Anything else — a wrong field count, text that is not UTF-8, a bad weight or time
 //!   — goes through [`Tally::add_record`] itself, so every rejection is the one the
 //!   record-by-record path gives.
 //!
-//! Duplicates, rejections, unexpected values and the newest time go to the tally at
-//! once, in file order, so the first-fifty lists and the unexpected-value limit come
-//! out as in one pass.
+//! Duplicates, rejections, unexpected values and the newest time go to the tally as
+//! each record is counted, in file order (a record that goes record by record first
+//! lets the waiting ones be counted), so the first-fifty lists and the
+//! unexpected-value limit come out as in one pass.
 
 use std::collections::HashMap;
 use std::hash::{BuildHasherDefault, Hasher};

@@ -16,7 +16,8 @@
 //!
 //! 16 bytes a slot. A shard grows by half when it would pass 4/5 full, so after the
 //! first few thousand ids every shard is between 8/15 and 4/5 full: at most 30 bytes
-//! per distinct id, and a growth copies one shard (1/256 of the set) at a time.
+//! per distinct id, and a growth copies one shard (1/256 of the set) at a time. A set
+//! given room in advance ([`IdSet::reserve`], from an estimate) holds that room.
 
 use std::fmt;
 
