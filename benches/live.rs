@@ -2,12 +2,15 @@
 //! one of them; `CLOSEOUT_BENCH_ROWS="1000000"` to follow one file size only).
 //!
 //! - B2 append: a followed file of 1 M (and 10 M) rows, caught up; then 1,000 rows
-//!   are appended and the clock runs from the write to the updated `Snapshot`:
-//!   `Live::poll` until caught up, then `assess`. Also shows the first read (the
-//!   dashboard's start) and its rate.
-//! - B3 verdict: `assess` of a study with 100 cells × 3 measures, every method, as the
-//!   live case sees it: before each timed call every cell gets one more response, so
-//!   every cell's n is new and nothing memoised per n helps.
+//!   are appended and the clock runs from the write to the updated `Snapshot` as the
+//!   dashboard sees it: `Live::poll` until caught up, then the verdict alone
+//!   (`assess_with(.., Detail::Verdict)`). Also the same with every method (`assess`,
+//!   as `status --follow --format json`), and the first read (the dashboard's start)
+//!   and its rate.
+//! - B3 verdict: `assess` of a study with 100 cells × 3 measures, as the live case
+//!   sees it: before each timed call every cell gets one more response, so every
+//!   cell's n is new and nothing memoised per n helps. Twice: the verdict alone, and
+//!   every method.
 //!
 //! Medians of RUNS runs. Speed is measured here, never asserted in a test. B2's file
 //! is the demo's invented study (`closeout::demo::bulk::write`, as `closeout demo
@@ -20,7 +23,7 @@ use std::io::Write;
 use std::path::Path;
 use std::time::Instant;
 
-use closeout::assess::assess;
+use closeout::assess::{Detail, assess, assess_with};
 use closeout::live::Live;
 use closeout::rows::Layout;
 use closeout::study::Study;
@@ -101,13 +104,20 @@ fn b2(rows: u64) {
         bytes / first / 1e6
     );
     let _ = assess(&study, live.tally(), as_of);
+    let _ = assess_with(
+        &study,
+        live.tally(),
+        as_of,
+        study.target.decide_by,
+        Detail::Verdict,
+    );
 
     let mut file = std::fs::OpenOptions::new()
         .append(true)
         .open(&followed)
         .unwrap();
-    let mut times = Vec::new();
-    let mut poll_times = Vec::new();
+    // Runs alternate: even ones the verdict alone, odd ones every method.
+    let (mut verdict, mut every, mut poll_times) = (Vec::new(), Vec::new(), Vec::new());
     for run in 0..RUNS {
         let from = ends[rows as usize + run * 1000];
         let to = ends[rows as usize + (run + 1) * 1000];
@@ -121,17 +131,32 @@ fn b2(rows: u64) {
             }
         }
         let polled = start.elapsed().as_secs_f64();
-        let snapshot = assess(&study, live.tally(), as_of);
+        let detail = if run % 2 == 0 {
+            Detail::Verdict
+        } else {
+            Detail::EveryMethod
+        };
+        let snapshot = assess_with(&study, live.tally(), as_of, study.target.decide_by, detail);
         let total = start.elapsed().as_secs_f64();
         assert_eq!(live.tally().rows_read, before + 1000);
         std::hint::black_box(snapshot);
-        times.push(total);
+        if run % 2 == 0 {
+            verdict.push(total);
+        } else {
+            every.push(total);
+        }
         poll_times.push(polled);
     }
     println!(
-        "B2 {rows} rows: append 1,000 rows → Snapshot {} (poll {}, assess the rest), median of {RUNS}",
-        ms(median(times)),
-        ms(median(poll_times))
+        "B2 {rows} rows: append 1,000 rows → Snapshot, the verdict alone {} (poll {}, assess the rest), median of {}",
+        ms(median(verdict.clone())),
+        ms(median(poll_times)),
+        verdict.len()
+    );
+    println!(
+        "B2 {rows} rows: append 1,000 rows → Snapshot with every method {}, median of {}",
+        ms(median(every.clone())),
+        every.len()
     );
     std::fs::remove_dir_all(&dir).ok();
 }
@@ -179,27 +204,38 @@ fn b3() {
         }
     }
     let as_of: jiff::Timestamp = "2026-06-01T00:00:00Z".parse().unwrap();
-    let mut times = Vec::new();
-    for _ in 0..RUNS {
-        for cell in 0..100 {
-            add(&mut tally, cell, &mut rng);
+    for (detail, what) in [
+        (Detail::Verdict, "the verdict alone"),
+        (Detail::EveryMethod, "every method"),
+    ] {
+        let mut times = Vec::new();
+        for _ in 0..RUNS {
+            for cell in 0..100 {
+                add(&mut tally, cell, &mut rng);
+            }
+            let start = Instant::now();
+            let snapshot = assess_with(&study, &tally, as_of, study.target.decide_by, detail);
+            times.push(start.elapsed().as_secs_f64());
+            assert_eq!(snapshot.cells.len(), 100);
+            std::hint::black_box(snapshot);
         }
-        let start = Instant::now();
-        let snapshot = assess(&study, &tally, as_of);
-        times.push(start.elapsed().as_secs_f64());
-        assert_eq!(snapshot.cells.len(), 100);
-        std::hint::black_box(snapshot);
+        let warm = {
+            let start = Instant::now();
+            std::hint::black_box(assess_with(
+                &study,
+                &tally,
+                as_of,
+                study.target.decide_by,
+                detail,
+            ));
+            start.elapsed().as_secs_f64()
+        };
+        println!(
+            "B3 assess, 100 cells × 3 measures, {what}, every n new: {} (median of {RUNS}); same n again: {}",
+            ms(median(times)),
+            ms(warm)
+        );
     }
-    let warm = {
-        let start = Instant::now();
-        std::hint::black_box(assess(&study, &tally, as_of));
-        start.elapsed().as_secs_f64()
-    };
-    println!(
-        "B3 assess, 100 cells × 3 measures, every method, every n new: {} (median of {RUNS}); same n again: {}",
-        ms(median(times)),
-        ms(warm)
-    );
 }
 
 fn main() {

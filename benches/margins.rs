@@ -1,6 +1,6 @@
 //! Time per call of the margin engine: `interval` for every method at three sizes,
-//! the first (unmemoised) call of the binomial margin, required sizes, and the widest
-//! margin search. Run with `cargo bench --bench margins`.
+//! the first (unmemoised) call of the binomial margin, required sizes, the widest
+//! margin search, and "how many more" (`more_needed`) for a cell not yet met. Run with `cargo bench --bench margins`.
 //!
 //! Each figure is the median over several runs of the time per call within a run; a
 //! run repeats the call until it has taken about 20 ms, so fast calls are averaged over
@@ -13,7 +13,8 @@ use std::hint::black_box;
 use std::time::{Duration, Instant};
 
 use closeout::bounds::{
-    Level, Method, Query, SizeQuery, interval, required_size, required_sizes, widest_margin,
+    Level, Method, Query, SizeQuery, interval, more_needed, required_size, required_sizes,
+    widest_margin,
 };
 
 /// Runs per figure; the median is reported.
@@ -152,4 +153,33 @@ fn main() {
         "widest_margin(clopper-pearson, n = 10000)",
         show(t)
     );
+
+    println!();
+    println!(
+        "more_needed(method, S = 300, n = 1000, ±1 %) at 95 %, tuned for 10,000, time per call"
+    );
+    for method in [
+        Method::Anytime,
+        Method::Wilson,
+        Method::Hoeffding,
+        Method::ClopperPearson,
+    ] {
+        for population in [None, Some(200_000)] {
+            let mut q = Query::new(300, 1000, level)
+                .and_then(|q| q.with_tune_for(10_000))
+                .expect("valid query");
+            if let Some(total) = population {
+                q = q.with_population(total).expect("valid population");
+            }
+            let more = more_needed(method, &q, 0.01).expect("available");
+            let t = per_call(|| {
+                let _ = black_box(more_needed(black_box(method), black_box(&q), 0.01));
+            });
+            let label = match population {
+                Some(total) => format!("{method}, population {total}"),
+                None => method.name().to_string(),
+            };
+            println!("{label:<42}{:>12}   ({more:?} more)", show(t));
+        }
+    }
 }

@@ -57,7 +57,11 @@ pub struct MeasureView {
     pub met: bool,
     /// More yes/no answers the deciding method needs if the proportion holds.
     pub needed: Option<u64>,
-    /// Every method's interval at the decision level.
+    /// The intervals at the decision level: every method's, in the order of
+    /// [`Method::ALL`], from [`assess`], [`assess_by`] and [`Detail::EveryMethod`];
+    /// only the deciding method's row (one row, or none before the measure can be
+    /// asked about) from [`Detail::Verdict`]. [`every_method`] gives one cell's full
+    /// rows afterwards.
     pub bounds: Vec<BoundRow>,
 }
 
@@ -179,14 +183,30 @@ fn query(tally: &MeasureTally, d: &Decision) -> Result<Query, bounds::BoundsErro
         })
 }
 
-fn measure_view(name: &str, tally: &MeasureTally, d: &Decision) -> MeasureView {
+/// How much of the methods' side-by-side table an assessment computes. The verdict
+/// (margins, met, needed, status, ETAs) is the same either way.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+pub enum Detail {
+    /// Every method's interval in [`MeasureView::bounds`]: what the JSON outputs show.
+    #[default]
+    EveryMethod,
+    /// Only the deciding method's interval in [`MeasureView::bounds`]: all a look at
+    /// the verdict needs (the dashboard's table, the text of `status --follow`, the
+    /// demo's run). Spares the other methods, the exact worst-case margin above all.
+    Verdict,
+}
+
+fn measure_view(name: &str, tally: &MeasureTally, d: &Decision, detail: Detail) -> MeasureView {
     let Decision {
         target, decide_by, ..
     } = *d;
     let built = query(tally, d);
     let (bounds, margin, needed, estimate, effective_n) = match built {
         Ok(q) => {
-            let rows = bounds::intervals(&q);
+            let rows = match detail {
+                Detail::EveryMethod => bounds::intervals(&q),
+                Detail::Verdict => vec![bounds::interval(decide_by, &q)],
+            };
             let margin = rows.iter().find_map(|r| {
                 r.as_ref()
                     .ok()
@@ -250,6 +270,19 @@ pub fn assess(study: &Study, tally: &Tally, as_of: Timestamp) -> Snapshot {
 /// The verdict as it would be if `decide_by` decided instead of the study's method
 /// (a preview: the study itself is unchanged; everything else is as in [`assess`]).
 pub fn assess_by(study: &Study, tally: &Tally, as_of: Timestamp, decide_by: Method) -> Snapshot {
+    assess_with(study, tally, as_of, decide_by, Detail::EveryMethod)
+}
+
+/// The verdict under `decide_by` (the study's own method, or a preview's), with as
+/// much of the methods' table as `detail` says; [`assess_by`] is this with
+/// [`Detail::EveryMethod`].
+pub fn assess_with(
+    study: &Study,
+    tally: &Tally,
+    as_of: Timestamp,
+    decide_by: Method,
+    detail: Detail,
+) -> Snapshot {
     let measure_count = study.measures.len();
     let empty = CellTally::new(Vec::new(), measure_count);
     // Planned cells: the quotas, or without quotas every observed cell.
@@ -321,6 +354,7 @@ pub fn assess_by(study: &Study, tally: &Tally, as_of: Timestamp, decide_by: Meth
         study_first,
         lately,
         as_of,
+        detail,
     };
     let mut cells = cell_views(&inputs, &context);
     cells.sort_by(|a, b| {
@@ -458,6 +492,43 @@ pub fn projection(
     out
 }
 
+/// Every method's interval for each measure of one cell of `snapshot` (by label), in
+/// the order of the cell's measures, each as [`MeasureView::bounds`] holds it under
+/// [`Detail::EveryMethod`]: the cell page's table when the snapshot was assessed with
+/// [`Detail::Verdict`]. Empty when the cell is not in `snapshot`.
+pub fn every_method(
+    study: &Study,
+    tally: &Tally,
+    snapshot: &Snapshot,
+    label: &str,
+) -> Vec<Vec<BoundRow>> {
+    let Some(view) = snapshot.cells.iter().find(|c| c.label == label) else {
+        return Vec::new();
+    };
+    let d = Decision {
+        level: study.decision_level(snapshot.cells_planned),
+        target: study.target.margin,
+        decide_by: snapshot.decide_by,
+        tune_for: view.tune_for,
+        population: view.population,
+        weighted: study.source.weight.is_some(),
+    };
+    let none = MeasureTally::default();
+    let measures = tally
+        .cells
+        .get(&tally_key(study, view))
+        .map_or(&[][..], |c| &c.measures[..]);
+    study
+        .measures
+        .iter()
+        .zip(measures.iter().chain(std::iter::repeat(&none)))
+        .map(|(_, m)| match query(m, &d) {
+            Ok(q) => bounds::intervals(&q).iter().map(BoundRow::from).collect(),
+            Err(_) => Vec::new(),
+        })
+        .collect()
+}
+
 /// The key under which the tally holds a cell of a snapshot.
 pub fn tally_key(study: &Study, cell: &CellView) -> CellKey {
     CellKey(
@@ -480,6 +551,7 @@ struct CellContext<'a> {
     study_first: Option<Timestamp>,
     lately: Timestamp,
     as_of: Timestamp,
+    detail: Detail,
 }
 
 /// Cells at least this many are shared out over the cores.
@@ -534,6 +606,7 @@ fn cell_view(input: &CellInput<'_>, context: &CellContext<'_>) -> CellView {
         study_first,
         lately,
         as_of,
+        detail,
     } = *context;
 
     let t = input.tally.unwrap_or(empty);
@@ -566,7 +639,7 @@ fn cell_view(input: &CellInput<'_>, context: &CellContext<'_>) -> CellView {
                 population,
                 weighted,
             };
-            measure_view(&m.name, mt, &d)
+            measure_view(&m.name, mt, &d, detail)
         })
         .collect();
     // Needed responses: each measure's need scaled by the share of responses

@@ -20,7 +20,7 @@ use std::path::{Path, PathBuf};
 
 use jiff::Timestamp;
 
-use crate::assess::{self, Snapshot};
+use crate::assess::{self, Detail, Snapshot};
 use crate::clock::Clock;
 use crate::event_log::{EventLog, LogError};
 use crate::headless::{self, FollowOptions};
@@ -391,7 +391,8 @@ fn simulated(line: &str) -> String {
 /// `status --follow` prints in text mode (each line marked as simulated). Stops
 /// after the last action, or before the first action later than `until`. Then
 /// prints the cells that were at risk along the way and the coverage check, and
-/// returns the last snapshot.
+/// returns the last snapshot (assessed with [`Detail::Verdict`]: each measure's
+/// `bounds` holds the deciding method's interval only).
 pub fn run_headless(
     demo: &Demo,
     until: Option<Timestamp>,
@@ -402,7 +403,19 @@ pub fn run_headless(
     let log_path = study.log.clone();
     let mut live = Live::new(study);
     let mut output = FollowOutput::new(false);
-    let mut snapshot = assess::assess(live.study(), live.tally(), demo.plan.start);
+    // Each look needs the verdict alone (the coverage check at the end reads the
+    // deciding method's interval, which it keeps).
+    let verdict = |live: &Live, at| {
+        let study = live.study();
+        assess::assess_with(
+            study,
+            live.tally(),
+            at,
+            study.target.decide_by,
+            Detail::Verdict,
+        )
+    };
+    let mut snapshot = verdict(&live, demo.plan.start);
     let print = |out: &mut dyn Write, lines: &[String]| -> Result<(), DemoError> {
         for line in lines {
             writeln!(out, "{line}").map_err(DemoError::Output)?;
@@ -428,7 +441,7 @@ pub fn run_headless(
                 break;
             }
         }
-        snapshot = assess::assess(live.study(), live.tally(), moment);
+        snapshot = verdict(&live, moment);
         if let Some(l) = &mut log {
             l.record(&events, &snapshot)?;
         }

@@ -10,7 +10,7 @@
 
 use std::io::Write;
 
-use crate::assess::{self, Snapshot};
+use crate::assess::{self, Detail, Snapshot};
 use crate::clock::Clock;
 use crate::event_log::EventLog;
 use crate::hints::{Hint, Hints};
@@ -76,9 +76,25 @@ pub fn follow(
     }
     let mut live = Live::new(study);
     let mut output = FollowOutput::new(options.json);
+    // The JSON lines carry every method; the summary lines need the verdict alone.
+    let detail = if options.json {
+        Detail::EveryMethod
+    } else {
+        Detail::Verdict
+    };
+    let look = |live: &Live| {
+        let study = live.study();
+        assess::assess_with(
+            study,
+            live.tally(),
+            clock.now(),
+            study.target.decide_by,
+            detail,
+        )
+    };
     let mut last_error: Option<String> = None;
     let mut last_log_error: Option<String> = None;
-    let mut snapshot: Snapshot = assess::assess(live.study(), live.tally(), clock.now());
+    let mut snapshot: Snapshot = look(&live);
     let mut hint = Some(Hint::File);
     loop {
         match hint {
@@ -110,7 +126,7 @@ pub fn follow(
                 Vec::new()
             }
         };
-        snapshot = assess::assess(live.study(), live.tally(), clock.now());
+        snapshot = look(&live);
         if let Some(l) = &mut log
             && let Err(e) = l.record(&events, &snapshot)
         {

@@ -288,29 +288,154 @@ pub fn required_sizes(sq: &SizeQuery) -> Vec<Result<RequiredSize, Unavailable>> 
 /// proportion holds: `Some(0)` when it is met already, `None` when no number within
 /// the search limit (or the population) does. Without responses yet, plans for the
 /// worst case.
+///
+/// The answer is the one a walk from the responses in hand gives (doubling, then
+/// halving, then a look below for a step back: [`smallest_meeting`]); it is reached
+/// from a guess instead ([`smallest_within`]), which for margins that shrink steadily
+/// as n grows is the same number after a handful of margins instead of thirty.
 pub fn more_needed(method: Method, q: &Query, target: f64) -> Result<Option<u64>, Unavailable> {
     let level = q.level();
     let tune_for = q.tune_for() as f64;
     let cap = q.population().unwrap_or(SEARCH_LIMIT);
     let Some(estimate) = q.estimate() else {
-        let sq = SizeQuery {
-            margin: target,
-            level,
-            population: q.population(),
-            expect: None,
-        };
-        let needed = smallest_meeting(first_n(method), cap, |n| {
-            Ok(within(
-                worst_margin(method, n, level, q.population(), tune_for)?,
-                sq.margin,
-            ))
-        })?;
+        let needed = smallest_within(
+            first_n(method),
+            cap,
+            target,
+            steps_back(method, q.population(), true),
+            |n| worst_margin(method, n, level, q.population(), tune_for),
+        )?;
         return Ok(needed.map(|n| n.saturating_sub(q.n())));
     };
-    let needed = smallest_meeting(q.n().max(first_n(method)), cap, |n| {
-        Ok(within(projected(method, q, estimate, n)?, target))
-    })?;
+    let needed = smallest_within(
+        q.n().max(first_n(method)),
+        cap,
+        target,
+        steps_back(method, q.population(), q.weights().is_none()),
+        |n| projected(method, q, estimate, n),
+    )?;
     Ok(needed.map(|n| n - q.n()))
+}
+
+/// Whether a method's margin at a held proportion can widen again as n grows, so
+/// that the search must look below the first n it finds: when it works from whole
+/// counts (the exact interval, the exact worst-case margin, anything clipped to the
+/// always-true bounds of a population), the rounding of the count to the nearest
+/// whole number makes small steps back. The others are smooth functions of n that
+/// only shrink (closed forms in n, Chernoff's divergence ball, the anytime mixture
+/// with its tuning fixed).
+fn steps_back(method: Method, population: Option<u64>, whole_counts: bool) -> bool {
+    (population.is_some() && whole_counts)
+        || matches!(method, Method::ClopperPearson | Method::Binomial)
+}
+
+/// [`smallest_meeting`] for `meets(n) = within(margin(n), target)`, started from a
+/// guess: the margin's local scaling with n (first `n^-½`, then the slope in log-log
+/// between the last two margins) says where it reaches the target; each guess lands
+/// inside the bracket of a failing and a meeting n, a bracket still wide after a few
+/// guesses is closed by steps doubling from the nearer end and halving, and with
+/// `look_below` the same look below the answer for a step back follows. For a test
+/// that is false then true this is exactly the n the walk finds.
+fn smallest_within(
+    from: u64,
+    cap: u64,
+    target: f64,
+    look_below: bool,
+    mut margin: impl FnMut(u64) -> Result<f64, Unavailable>,
+) -> Result<Option<u64>, Unavailable> {
+    const GUESSES: usize = 6;
+    let from = from.max(1);
+    if from > cap {
+        return Ok(None);
+    }
+    let first = margin(from)?;
+    if within(first, target) {
+        return Ok(Some(from));
+    }
+    let mut meets = |n: u64| margin(n).map(|m| (within(m, target), m));
+    // lo fails; hi, once known, meets.
+    let mut lo = from;
+    let mut hi: Option<u64> = None;
+    let mut last = (from as f64, first);
+    let mut slope = -0.5;
+    for _ in 0..GUESSES {
+        let top = hi.map_or(cap, |h| h - 1);
+        if top <= lo {
+            break;
+        }
+        let aim = last.0 * ((target / last.1).ln() / slope).exp();
+        let guess = if aim.is_finite() {
+            (aim.ceil() as u64).clamp(lo + 1, top)
+        } else {
+            top
+        };
+        let (ok, m) = meets(guess)?;
+        if ok {
+            hi = Some(guess);
+        } else {
+            lo = guess;
+        }
+        let x = guess as f64;
+        if m > 0.0 && last.1 > 0.0 && m.is_finite() && x != last.0 {
+            let s = (m / last.1).ln() / (x / last.0).ln();
+            if s.is_finite() && s < -1e-3 {
+                slope = s;
+            }
+        }
+        last = (x, m);
+    }
+    let mut hi = match hi {
+        Some(h) => h,
+        None => {
+            // Every guess fell short: steps doubling from the last failing n.
+            let mut step = (lo / 1024).max(1);
+            loop {
+                if lo >= cap {
+                    return Ok(None);
+                }
+                let probe = lo.saturating_add(step).min(cap);
+                if meets(probe)?.0 {
+                    break probe;
+                }
+                lo = probe;
+                step = step.saturating_mul(2);
+            }
+        }
+    };
+    // A wide bracket (guesses that all met): steps doubling down from the meeting end.
+    let mut step = (hi / 1024).max(1);
+    while hi - lo > 2 * step {
+        let probe = hi - step;
+        if meets(probe)?.0 {
+            hi = probe;
+            step = step.saturating_mul(2);
+        } else {
+            lo = probe;
+        }
+    }
+    while hi - lo > 1 {
+        let mid = lo + (hi - lo) / 2;
+        if meets(mid)?.0 {
+            hi = mid;
+        } else {
+            lo = mid;
+        }
+    }
+    let mut best = hi;
+    if look_below {
+        let mut n = hi;
+        let mut misses = 0;
+        while n > from && misses < 16 {
+            n -= 1;
+            if meets(n)?.0 {
+                best = n;
+                misses = 0;
+            } else {
+                misses += 1;
+            }
+        }
+    }
+    Ok(Some(best))
 }
 
 /// The margin `method` would give at `n` responses if the current proportion held,
@@ -346,4 +471,114 @@ fn projected(method: Method, q: &Query, estimate: f64, n: u64) -> Result<f64, Un
         None => basis_at(n, estimate * n as f64, level, q.population(), tune_for),
     };
     margin_at(method, &b, q.weights().is_some())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::bounds::WeightSums;
+    use proptest::prelude::*;
+
+    /// `more_needed` as it was before the guess: the walk from the responses in hand
+    /// for every method. The search from a guess must give the same answer.
+    fn walked(method: Method, q: &Query, target: f64) -> Result<Option<u64>, Unavailable> {
+        let level = q.level();
+        let tune_for = q.tune_for() as f64;
+        let cap = q.population().unwrap_or(SEARCH_LIMIT);
+        let Some(estimate) = q.estimate() else {
+            let needed = smallest_meeting(first_n(method), cap, |n| {
+                Ok(within(
+                    worst_margin(method, n, level, q.population(), tune_for)?,
+                    target,
+                ))
+            })?;
+            return Ok(needed.map(|n| n.saturating_sub(q.n())));
+        };
+        let needed = smallest_meeting(q.n().max(first_n(method)), cap, |n| {
+            Ok(within(projected(method, q, estimate, n)?, target))
+        })?;
+        Ok(needed.map(|n| n - q.n()))
+    }
+
+    fn query(
+        successes: u64,
+        n: u64,
+        confidence: f64,
+        tune_for: u64,
+        population: Option<u64>,
+        design_effect: Option<f64>,
+    ) -> Query {
+        let mut q = Query::new(successes, n, Level::from_confidence(confidence).unwrap())
+            .unwrap()
+            .with_tune_for(tune_for)
+            .unwrap();
+        if let Some(total) = population {
+            q = q.with_population(total.max(n)).unwrap();
+        }
+        if let Some(deff) = design_effect
+            && n > 0
+        {
+            // Two weights, 1 and w, on halves of the responses, so that the design
+            // effect is about `deff`; the weighted proportion about S/n.
+            let w = 2.0 * deff - 1.0 + (4.0 * deff * (deff - 1.0)).sqrt();
+            let half = n as f64 / 2.0;
+            let p = successes as f64 / n as f64;
+            q = q
+                .with_weights(WeightSums {
+                    sum_w: half * (1.0 + w),
+                    sum_w2: half * (1.0 + w * w),
+                    sum_wy: p * half * (1.0 + w),
+                })
+                .unwrap();
+        }
+        q
+    }
+
+    proptest! {
+        #![proptest_config(ProptestConfig { cases: 400, rng_seed: proptest::test_runner::RngSeed::Fixed(29), ..ProptestConfig::default() })]
+
+        /// Every method, at random counts, targets and levels, with and without a
+        /// population and weights: the same answer as the walk.
+        #[test]
+        fn the_search_from_a_guess_finds_what_the_walk_finds(
+            method in 0..Method::ALL.len(),
+            n in prop_oneof![0u64..50, 50u64..3_000, 3_000u64..40_000],
+            share in 0.0f64..=1.0,
+            target in prop_oneof![0.005f64..0.05, 0.05f64..0.3],
+            confidence in prop_oneof![Just(0.95), Just(0.9), Just(0.99), 0.5f64..0.999],
+            tune in 10u64..50_000,
+            population in prop::option::of(1u64..200_000),
+            design_effect in prop::option::weighted(0.2, 1.0f64..4.0),
+        ) {
+            let method = Method::ALL[method];
+            // The exact worst-case margin is linear in n: keep its searches short.
+            let target = if method == Method::Binomial { target.max(0.02) } else { target };
+            let successes = ((n as f64) * share).round() as u64;
+            let q = query(successes, n, confidence, tune, population, design_effect);
+            prop_assert_eq!(more_needed(method, &q, target), walked(method, &q, target));
+        }
+    }
+
+    /// A few of the cases the dashboard meets most: the anytime method and Wilson at
+    /// the common levels, with the cells of a large study, one by one.
+    #[test]
+    fn the_common_cases_agree_with_the_walk() {
+        for method in [Method::Anytime, Method::Wilson, Method::ClopperPearson] {
+            for n in [1, 7, 100, 999, 5_000, 40_000, 250_000] {
+                for share in [0.0, 0.03, 0.3, 0.5, 0.81, 1.0] {
+                    for population in [None, Some(60_000), Some(300_000)] {
+                        let successes = (n as f64 * share).round() as u64;
+                        let q = query(successes, n, 0.95, 10_000, population, None);
+                        for target in [0.01, 0.03, 0.1] {
+                            assert_eq!(
+                                more_needed(method, &q, target),
+                                walked(method, &q, target),
+                                "{method} {successes}/{n} {population:?} ±{target}"
+                            );
+                        }
+                    }
+                }
+            }
+        }
+    }
 }

@@ -14,9 +14,9 @@ use std::time::Instant;
 
 use jiff::{SignedDuration, Timestamp};
 
-use crate::assess::{self, CellView, Snapshot};
+use crate::assess::{self, CellView, Detail, Snapshot};
 
-use crate::bounds::Method;
+use crate::bounds::{BoundRow, Method};
 use crate::clock::Clock;
 use crate::event_log::EventLog;
 use crate::hints::{self, Hint, Hints};
@@ -89,10 +89,15 @@ pub struct Notice {
     pub text: String,
 }
 
-/// The focused cell's extras: its projected margin, and arrivals per hour.
+/// The focused cell's extras: every method's interval, its projected margin, and
+/// arrivals per hour.
 #[derive(Clone, Debug, PartialEq)]
 pub struct Focus {
     pub label: String,
+    /// Every method's interval for each of the cell's measures, in the order of its
+    /// measures (as [`assess::every_method`] gives them): the snapshots sent hold only
+    /// the deciding method's ([`Detail::Verdict`]).
+    pub methods: Vec<Vec<BoundRow>>,
     /// (responses, deciding margin) if the proportions held, from now to where the
     /// target is met (or further, when it is out of reach).
     pub projected: Vec<(u64, f64)>,
@@ -104,9 +109,12 @@ pub struct Focus {
 /// Everything the dashboard draws, as of one look.
 #[derive(Clone, Debug)]
 pub struct Update {
-    /// The verdict under the study's own method.
+    /// The verdict under the study's own method, assessed with [`Detail::Verdict`]
+    /// (each measure's `bounds` holds the deciding method's row only; the focused
+    /// cell's every method is in [`Focus::methods`]).
     pub snapshot: Arc<Snapshot>,
-    /// The verdict under a previewed method, when one is asked for.
+    /// The verdict under a previewed method, when one is asked for (also
+    /// [`Detail::Verdict`]).
     pub preview: Option<Arc<Snapshot>>,
     pub reading: Reading,
     /// Notices since the last update, oldest first.
@@ -292,7 +300,13 @@ impl Feed {
     ) -> Update {
         let study = self.live.study();
         let tally = self.live.tally();
-        let snapshot = Arc::new(assess::assess(study, tally, now));
+        let snapshot = Arc::new(assess::assess_with(
+            study,
+            tally,
+            now,
+            study.target.decide_by,
+            Detail::Verdict,
+        ));
         self.last_assessed = Some(now);
         let mut notices = notices;
         if let (Some(log), Some(events)) = (&mut self.log, events) {
@@ -308,7 +322,7 @@ impl Feed {
             .retain(|label, _| snapshot.cells.iter().any(|c| &c.label == label));
         let preview = self
             .preview
-            .map(|m| Arc::new(assess::assess_by(study, tally, now, m)));
+            .map(|m| Arc::new(assess::assess_with(study, tally, now, m, Detail::Verdict)));
         let shown = preview.as_ref().unwrap_or(&snapshot);
         let hour = Arrivals::hour_of(now);
         let timed = study.source.time.is_some();
@@ -331,6 +345,7 @@ impl Feed {
             let key = assess::tally_key(study, view);
             Some(Focus {
                 label: label.clone(),
+                methods: assess::every_method(study, tally, shown, label),
                 projected: assess::projection(study, tally, shown, label, upto, PROJECTION_POINTS),
                 arrivals: timed.then(|| {
                     tally

@@ -20,7 +20,7 @@ use super::feed::{ARRIVAL_HOURS, Reading};
 use super::format::{bytes, count, duration, moment, percent1, points1, short_moment};
 use super::theme::{STATUS_LEGEND, status_symbol, status_text};
 use crate::assess::{CellView, MeasureView, Snapshot, Status};
-use crate::bounds::{Guarantee, Method};
+use crate::bounds::{BoundRow, Guarantee, Method};
 use crate::report::{self, CAUTIONS, clean, confidence_label};
 
 /// The smallest terminal the dashboard draws in.
@@ -303,19 +303,54 @@ fn draw_preview(frame: &mut Frame, area: Rect, app: &App) {
     );
 }
 
-/// The guarantee a method gives in this study, as the verdict's own intervals say
-/// (with weights most methods are only approximate).
+/// The guarantee a method gives in this study, as the intervals computed say (with
+/// weights most methods are only approximate): the focused cell's, which hold every
+/// method, then the verdict's, which hold the deciding method's. A method in neither
+/// gives its own guarantee, made approximate when a measure was computed with
+/// weights (an effective n) and the method is not rigorous with them.
 fn guarantee_of(app: &App, m: Method) -> Guarantee {
-    app.shown()
-        .and_then(|s| {
-            s.cells
-                .iter()
-                .flat_map(|c| &c.measures)
-                .flat_map(|measure| &measure.bounds)
-                .find(|b| b.method == m)
-                .map(|b| b.guarantee)
-        })
-        .unwrap_or_else(|| m.guarantee())
+    let focused = app
+        .feed
+        .as_deref()
+        .and_then(|u| u.focus.as_ref())
+        .map(|f| f.methods.iter().flatten());
+    let shown = app.shown();
+    let verdict = shown
+        .into_iter()
+        .flat_map(|s| &s.cells)
+        .flat_map(|c| &c.measures)
+        .flat_map(|measure| &measure.bounds);
+    if let Some(b) = focused
+        .into_iter()
+        .flatten()
+        .chain(verdict)
+        .find(|b| b.method == m)
+    {
+        return b.guarantee;
+    }
+    let weighted = shown
+        .into_iter()
+        .flat_map(|s| &s.cells)
+        .flat_map(|c| &c.measures)
+        .any(|measure| measure.effective_n.is_some());
+    if weighted && !m.rigorous_with_weights() {
+        Guarantee::Approximate
+    } else {
+        m.guarantee()
+    }
+}
+
+/// The intervals the cell page lists for measure `index` of cell `c`: every method's
+/// from the feed's focus on that cell, or until it arrives the verdict's own (the
+/// deciding method's).
+fn cell_rows<'a>(app: &'a App, c: &'a CellView, index: usize) -> &'a [BoundRow] {
+    app.feed
+        .as_deref()
+        .and_then(|u| u.focus.as_ref())
+        .filter(|f| f.label == c.label)
+        .and_then(|f| f.methods.get(index))
+        .or_else(|| c.measures.get(index).map(|m| &m.bounds))
+        .map_or(&[], Vec::as_slice)
 }
 
 fn draw_gauge(frame: &mut Frame, area: Rect, app: &App, done: u64, total: u64, rate: f64) {
@@ -781,11 +816,11 @@ fn draw_cell_methods(
     let [top, table_area] =
         Layout::vertical([Constraint::Length(head), Constraint::Fill(1)]).areas(area);
     frame.render_widget(Paragraph::new(lines), top);
-    let Some(m) = m else {
+    if m.is_none() {
         return;
-    };
-    let rows: Vec<Row> = m
-        .bounds
+    }
+    let index = app.measure.min(c.measures.len().saturating_sub(1));
+    let rows: Vec<Row> = cell_rows(app, c, index)
         .iter()
         .map(|b| {
             let deciding = b.method == s.decide_by;
