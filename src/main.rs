@@ -366,7 +366,13 @@ fn run(cli: Cli) -> Result<Done, Usage> {
             };
             let study = Study::load(&study).map_err(|e| Usage(e.to_string()))?;
             let tally = batch::read(&study).map_err(|e| Usage(e.to_string()))?;
-            let snapshot = assess::assess(&study, &tally, as_of);
+            // Text and CSV show the deciding method only; JSON carries every method.
+            let detail = match format {
+                Format::Json => assess::Detail::EveryMethod,
+                Format::Text | Format::Csv => assess::Detail::Verdict,
+            };
+            let snapshot =
+                assess::assess_with(&study, &tally, as_of, study.target.decide_by, detail);
             let text = match format {
                 Format::Text => report::status_text(&snapshot),
                 Format::Json => format!("{}\n", report::status_json(&snapshot)),
