@@ -432,6 +432,18 @@ pub fn assess_with(
     }
 }
 
+/// What one cell of a snapshot was judged by (to compute more of it afterwards).
+fn decision_for(study: &Study, snapshot: &Snapshot, view: &CellView) -> Decision {
+    Decision {
+        level: study.decision_level(snapshot.cells_planned),
+        target: study.target.margin,
+        decide_by: snapshot.decide_by,
+        tune_for: view.tune_for,
+        population: view.population,
+        weighted: study.source.weight.is_some(),
+    }
+}
+
 /// The cell's deciding margin (its widest measure's) at larger numbers of responses,
 /// if every measure's proportion, and the share of responses that answer it, held as
 /// they are: what "needed" assumes, drawn as a curve. `points` response counts from
@@ -456,14 +468,7 @@ pub fn projection(
     if now == 0 || points == 0 {
         return Vec::new();
     }
-    let d = Decision {
-        level: study.decision_level(snapshot.cells_planned),
-        target: study.target.margin,
-        decide_by: snapshot.decide_by,
-        tune_for: view.tune_for,
-        population: view.population,
-        weighted: study.source.weight.is_some(),
-    };
+    let d = decision_for(study, snapshot, view);
     let queries: Vec<(Query, f64)> = cell
         .measures
         .iter()
@@ -505,14 +510,7 @@ pub fn every_method(
     let Some(view) = snapshot.cells.iter().find(|c| c.label == label) else {
         return Vec::new();
     };
-    let d = Decision {
-        level: study.decision_level(snapshot.cells_planned),
-        target: study.target.margin,
-        decide_by: snapshot.decide_by,
-        tune_for: view.tune_for,
-        population: view.population,
-        weighted: study.source.weight.is_some(),
-    };
+    let d = decision_for(study, snapshot, view);
     let none = MeasureTally::default();
     let measures = tally
         .cells
