@@ -17,6 +17,25 @@ pub struct Layout {
     pub weight: Option<usize>,
 }
 
+impl Layout {
+    /// The columns the study reads (cells, answers, id, weight, time), each once, in
+    /// header order.
+    pub fn used_columns(&self) -> Vec<usize> {
+        let mut used: Vec<usize> = self
+            .cells
+            .iter()
+            .copied()
+            .chain(self.measures.iter().map(|m| m.column))
+            .chain(self.id)
+            .chain(self.weight)
+            .chain(self.time)
+            .collect();
+        used.sort_unstable();
+        used.dedup();
+        used
+    }
+}
+
 /// How one measure reads its column.
 #[derive(Clone, Debug, PartialEq, Eq)]
 pub struct MeasureRule {
@@ -236,18 +255,7 @@ pub fn read_record<'a>(
             found: record.len(),
         }));
     }
-    let mut used: Vec<usize> = layout
-        .cells
-        .iter()
-        .copied()
-        .chain(layout.measures.iter().map(|m| m.column))
-        .chain(layout.id)
-        .chain(layout.weight)
-        .chain(layout.time)
-        .collect();
-    used.sort_unstable();
-    used.dedup();
-    for &column in &used {
+    for column in layout.used_columns() {
         match record.get(column) {
             None => {
                 // Only a layout whose columns lie beyond its width reaches here.

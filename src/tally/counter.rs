@@ -99,17 +99,7 @@ pub struct Counter {
 impl Counter {
     /// A counter for records read through `layout`.
     pub fn new(layout: &Layout) -> Counter {
-        let mut used: Vec<usize> = layout
-            .cells
-            .iter()
-            .copied()
-            .chain(layout.measures.iter().map(|m| m.column))
-            .chain(layout.id)
-            .chain(layout.weight)
-            .chain(layout.time)
-            .collect();
-        used.sort_unstable();
-        used.dedup();
+        let used = layout.used_columns();
         let slot = |column: usize| used.iter().position(|&c| c == column).unwrap_or(0);
         let slots = Slots {
             cells: layout.cells.iter().map(|&c| slot(c)).collect(),
