@@ -21,6 +21,7 @@
 use std::collections::{BTreeMap, BTreeSet};
 use std::io::Read;
 use std::sync::atomic::{AtomicU64, Ordering};
+use std::sync::mpsc;
 
 use jiff::Timestamp;
 
@@ -31,6 +32,7 @@ mod counter;
 mod ids;
 
 pub use counter::Counter;
+use counter::{Batch, Counting, Reading};
 use ids::IdSet;
 
 /// Rejections and duplicates listed in full (the rest are counted).
@@ -660,13 +662,12 @@ impl Tally {
         }
     }
 
-    fn note_unexpected(&mut self, measure: usize, raw: &str) {
-        let (Some(named), Some(counts)) = (
-            self.named.get_mut(measure),
-            self.unexpected_values.get_mut(measure),
-        ) else {
-            return;
-        };
+    /// Count an unexpected answer; the value it is counted under (its normalised
+    /// form, or [`OTHER_VALUES`] once [`UNEXPECTED_LIMIT`] values are named). A raw
+    /// answer is counted under the same value every time after its first: a value
+    /// named stays named, and once the limit is reached no value is named again.
+    fn note_unexpected(&mut self, measure: usize, raw: &str) -> Option<String> {
+        let named = self.named.get_mut(measure)?;
         let value = rows::normalise(raw);
         let key = if named.contains(&value) {
             value
@@ -676,7 +677,21 @@ impl Tally {
         } else {
             OTHER_VALUES.to_string()
         };
-        *counts.entry(key).or_insert(0) += 1;
+        self.add_unexpected(measure, &key, 1);
+        Some(key)
+    }
+
+    /// Count `count` more unexpected answers under `key`, a value
+    /// [`Tally::note_unexpected`] has returned.
+    fn add_unexpected(&mut self, measure: usize, key: &str, count: u64) {
+        if let Some(counts) = self.unexpected_values.get_mut(measure) {
+            match counts.get_mut(key) {
+                Some(n) => *n += count,
+                None => {
+                    counts.insert(key.to_string(), count);
+                }
+            }
+        }
     }
 
     /// Make room for about `ids` distinct ids in all, at once (an estimate: the room
@@ -686,11 +701,13 @@ impl Tally {
     }
 
     /// Make room for the ids of a whole input of `total` bytes, judging by the
-    /// distinct ids in its first `read` bytes (nothing when there are none yet).
+    /// distinct ids in its first `read` bytes (nothing when there are none yet), with
+    /// 1/16 to spare: a table sized to the estimate exactly would grow (copying every
+    /// shard) just before the end whenever the estimate is a little short.
     pub fn reserve_ids_for(&mut self, read: u64, total: u64) {
         let seen = self.ids.len();
         if seen > 0 && read > 0 && total > read {
-            let expected = seen as f64 * total as f64 / read as f64;
+            let expected = seen as f64 * total as f64 / read as f64 * (17.0 / 16.0);
             self.ids
                 .reserve(expected.min(usize::MAX as f64 / 2.0) as usize);
         }
@@ -746,19 +763,66 @@ pub fn tally_csv<R: Read, E>(
 /// [`tally_csv`] of input whose size is known (`size` bytes, such as a file's), so
 /// that the id set can be given its room once the first block shows how many ids a
 /// byte holds, instead of growing step by step. The result is the same.
+///
+/// Two threads share the work: this one reads the bytes, splits the records and reads
+/// each one ([`counter::Reading`]); the other counts them in file order
+/// ([`counter::Counting`]: the id set, the sums, the lists), taking batches of
+/// [`PIPE_BATCH`] records through a channel. The tally is the one a single thread
+/// gives, since everything that depends on order happens on the counting side in
+/// file order.
 pub fn tally_csv_sized<R: Read, E>(
     layout_for: impl FnOnce(&[&str]) -> Result<Layout, E>,
     mut reader: R,
     delimiter: u8,
     size: Option<u64>,
 ) -> Result<(Vec<String>, Tally), TallyError<E>> {
+    std::thread::scope(|scope| {
+        let (to_counting, batches) = mpsc::sync_channel::<Batch>(QUEUED);
+        let (to_reading, spare) = mpsc::channel::<Batch>();
+        let (start, started) = mpsc::sync_channel::<(Counting, Tally)>(1);
+        let counting = scope.spawn(move || {
+            let (mut counting, mut tally) = started.recv().ok()?;
+            for mut batch in batches {
+                counting.count(&mut tally, &mut batch);
+                // The reading side may have finished; then the batch is dropped.
+                let _ = to_reading.send(batch);
+            }
+            counting.flush(&mut tally);
+            Some(tally)
+        });
+        let mut sink = CsvSink {
+            layout_for: Some(layout_for),
+            state: None,
+            start: Some(start),
+            to_counting,
+            spare,
+            problem: None,
+        };
+        let header = read_all(&mut sink, &mut reader, delimiter, size)?;
+        sink.send();
+        // Every sender goes, so that the counting thread ends (it may still be
+        // waiting for its start when there was no header).
+        drop(sink);
+        let tally = counting
+            .join()
+            .map_err(|_| TallyError::Io("the counting thread stopped unexpectedly".into()))?;
+        match (header, tally) {
+            (Some(header), Some(tally)) => Ok((header, tally)),
+            _ => Err(TallyError::NoHeader),
+        }
+    })
+}
+
+/// Feed the whole input through the record reader into the sink; the header, once
+/// there is one.
+fn read_all<R: Read, E, F: FnOnce(&[&str]) -> Result<Layout, E>>(
+    sink: &mut CsvSink<E, F>,
+    reader: &mut R,
+    delimiter: u8,
+    size: Option<u64>,
+) -> Result<Option<Vec<String>>, TallyError<E>> {
     let mut sized = size.is_none();
     let mut parser = crate::follow::Reader::new(delimiter, crate::follow::RECORD_LIMIT);
-    let mut sink = CsvSink {
-        layout_for: Some(layout_for),
-        state: None,
-        problem: None,
-    };
     let mut warnings = Vec::new();
     let mut buffer = vec![0u8; READ_BLOCK];
     // Bytes at the front of `buffer` not taken yet (the start of a byte-order mark).
@@ -785,19 +849,18 @@ pub fn tally_csv_sized<R: Read, E>(
                 )));
             }
         }
-        let took = parser.feed(data, &mut sink, &mut warnings);
+        let took = parser.feed(data, sink, &mut warnings);
         if got == 0 {
-            parser.finish(&mut sink, &mut warnings);
+            parser.finish(sink, &mut warnings);
         }
         if let Some(problem) = sink.problem.take() {
             return Err(problem);
         }
-        if let Some((_, counter, tally)) = sink.state.as_mut() {
-            counter.flush(tally);
-            if !sized && let Some(total) = size {
-                tally.reserve_ids_for(parser.taken(), total);
-                sized = true;
-            }
+        if !sized && let (Some(total), Some((_, _, batch))) = (size, sink.state.as_mut()) {
+            // Room for the ids once the first block shows how many a byte holds.
+            batch.reserve = Some((parser.taken(), total));
+            sink.send();
+            sized = true;
         }
         warnings.clear();
         if got == 0 {
@@ -806,18 +869,47 @@ pub fn tally_csv_sized<R: Read, E>(
         buffer.copy_within(took..kept + got, 0);
         kept = kept + got - took;
     }
-    let (header, _, tally) = sink.state.ok_or(TallyError::NoHeader)?;
-    Ok((header, tally))
+    Ok(sink.state.as_ref().map(|(header, _, _)| header.clone()))
 }
 
 /// How many bytes a batch read asks for at a time.
 const READ_BLOCK: usize = 1 << 20;
+/// Records the reading side of [`tally_csv_sized`] sends at a time.
+const PIPE_BATCH: usize = 2048;
+/// Batches that may wait for the counting side.
+const QUEUED: usize = 4;
 
-/// Where [`tally_csv`]'s reader hands the header and the records.
+/// Where [`tally_csv`]'s reader hands the header and the records: read into batches
+/// that go to the counting thread.
 struct CsvSink<E, F> {
     layout_for: Option<F>,
-    state: Option<(Vec<String>, Counter, Tally)>,
+    /// The header, the reading half and the batch being filled.
+    state: Option<(Vec<String>, Reading, Batch)>,
+    /// Where the counting half and the tally go once the header is read.
+    start: Option<mpsc::SyncSender<(Counting, Tally)>>,
+    to_counting: mpsc::SyncSender<Batch>,
+    /// Batches the counting side has emptied, to fill again.
+    spare: mpsc::Receiver<Batch>,
     problem: Option<TallyError<E>>,
+}
+
+impl<E, F> CsvSink<E, F> {
+    /// Send the batch being filled (if it holds anything) to the counting side.
+    fn send(&mut self) {
+        let Some((_, _, batch)) = self.state.as_mut() else {
+            return;
+        };
+        if batch.len() == 0 && batch.reserve.is_none() {
+            return;
+        }
+        let next = self.spare.try_recv().unwrap_or_default();
+        let full = std::mem::replace(batch, next);
+        if self.to_counting.send(full).is_err() {
+            self.problem = Some(TallyError::Io(
+                "the counting thread stopped unexpectedly".into(),
+            ));
+        }
+    }
 }
 
 impl<E, F: FnOnce(&[&str]) -> Result<Layout, E>> crate::follow::Out for CsvSink<E, F> {
@@ -845,7 +937,12 @@ impl<E, F: FnOnce(&[&str]) -> Result<Layout, E>> crate::follow::Out for CsvSink<
         match resolve(&refs) {
             Ok(layout) => {
                 let tally = Tally::new(layout.measures.len());
-                self.state = Some((names, Counter::new(&layout), tally));
+                let (reading, counting) = Counter::new(&layout).into_halves();
+                if let Some(start) = self.start.take() {
+                    // A closed channel shows up when the first batch is sent.
+                    let _ = start.send((counting, tally));
+                }
+                self.state = Some((names, reading, Batch::default()));
             }
             Err(e) => self.problem = Some(TallyError::Layout(e)),
         }
@@ -858,22 +955,22 @@ impl<E, F: FnOnce(&[&str]) -> Result<Layout, E>> crate::follow::Out for CsvSink<
         fields: crate::follow::Fields<'_>,
         too_long: Option<u64>,
     ) {
-        let Some((_, counter, tally)) = self.state.as_mut() else {
+        let Some((_, reading, batch)) = self.state.as_mut() else {
             return;
         };
         match too_long {
-            Some(bytes) => tally.reject(Rejection {
-                line,
-                reason: rows::Reason::TooLong { bytes },
-            }),
-            None => counter.add(tally, fields, line),
+            Some(bytes) => batch.push_too_long(line, bytes),
+            None => reading.read(fields, line, batch),
+        }
+        if batch.len() >= PIPE_BATCH {
+            self.send();
         }
     }
 }
 
 #[cfg(test)]
 mod tests {
-    use super::ids::{id_hash, siphash24};
+    use super::ids::id_hash;
     use super::*;
     use crate::rows::MeasureRule;
     use rand::seq::SliceRandom;
@@ -901,27 +998,23 @@ mod tests {
         s.value()
     }
 
+    /// XXH3-128 of ids of every length class, from the Python `xxhash` package
+    /// (bindings to the xxHash C library; versions in the file), made by
+    /// `tests/reference/make_id_hashes.py`.
     #[test]
-    fn siphash_matches_the_published_vector_and_the_standard_library() {
-        // Aumasson & Bernstein (2012), "SipHash: a fast short-input PRF", appendix A:
-        // key 00 01 … 0f, message 00 01 … 0e.
-        let k0 = u64::from_le_bytes([0, 1, 2, 3, 4, 5, 6, 7]);
-        let k1 = u64::from_le_bytes([8, 9, 10, 11, 12, 13, 14, 15]);
-        let message: Vec<u8> = (0..15).collect();
-        assert_eq!(siphash24(k0, k1, &message), 0xa129_ca61_49be_45e5);
-        // The standard library's (deprecated) SipHasher is SipHash-2-4 too.
-        let mut rng = ChaCha8Rng::seed_from_u64(7);
-        for len in 0..=70 {
-            let bytes: Vec<u8> = (0..len).map(|_| rng.random()).collect();
-            let (a, b) = (rng.random::<u64>(), rng.random::<u64>());
-            #[allow(deprecated)]
-            let mut reference = std::hash::SipHasher::new_with_keys(a, b);
-            std::hash::Hasher::write(&mut reference, &bytes);
-            assert_eq!(
-                siphash24(a, b, &bytes),
-                std::hash::Hasher::finish(&reference),
-                "length {len}"
-            );
+    fn id_hashes_match_the_xxhash_c_library() {
+        let text = include_str!("../tests/reference/id_hashes.json");
+        let fixture: serde_json::Value = serde_json::from_str(text).unwrap();
+        let cases = fixture["cases"].as_array().unwrap();
+        assert!(cases.len() > 80);
+        for case in cases {
+            let hex = case["id_hex"].as_str().unwrap();
+            let id: Vec<u8> = (0..hex.len())
+                .step_by(2)
+                .map(|i| u8::from_str_radix(&hex[i..i + 2], 16).unwrap())
+                .collect();
+            let want = u128::from_str_radix(case["xxh3_128"].as_str().unwrap(), 16).unwrap();
+            assert_eq!(id_hash(&id), want, "id {hex}");
         }
     }
 

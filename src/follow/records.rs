@@ -36,9 +36,17 @@ pub struct Fields<'a> {
     bytes: &'a [u8],
     ends: &'a [usize],
     gap: usize,
+    /// Every byte is known to be ASCII (false: not known).
+    ascii: bool,
 }
 
 impl<'a> Fields<'a> {
+    /// Whether every byte of every field is known to be ASCII (a record split in
+    /// place is checked as it is split; false when not known).
+    pub fn known_ascii(&self) -> bool {
+        self.ascii
+    }
+
     /// The number of fields.
     pub fn len(&self) -> usize {
         self.ends.len()
@@ -284,15 +292,18 @@ impl Reader {
         warnings: &mut Vec<Warning>,
     ) -> Option<usize> {
         let delimiter = self.split_on?;
-        let len = memchr::memchr2(b'\n', b'\r', data)?;
-        let line = &data[..len];
-        // The parser counts the line end in a record's length too.
-        if len as u64 >= self.limit || memchr::memchr(b'"', line).is_some() {
-            return None;
-        }
         let mut ends = std::mem::take(&mut self.split_ends);
         ends.clear();
-        ends.extend(memchr::memchr_iter(delimiter, line));
+        let found = split_line(data, delimiter, &mut ends);
+        let (len, ascii) = match found {
+            // The parser counts the line end in a record's length too.
+            Some((len, ascii)) if (len as u64) < self.limit => (len, ascii),
+            _ => {
+                self.split_ends = ends;
+                return None;
+            }
+        };
+        let line = &data[..len];
         ends.push(len);
         self.start_line = self.line;
         self.start_offset = self.taken;
@@ -301,6 +312,7 @@ impl Reader {
             bytes: line,
             ends: &ends,
             gap: 1,
+            ascii,
         };
         self.complete(fields, None, out, warnings);
         self.split_ends = ends;
@@ -355,6 +367,7 @@ impl Reader {
             bytes: fields.get(..out_len).unwrap_or_default(),
             ends: ends.get(..end_len).unwrap_or_default(),
             gap: 0,
+            ascii: false,
         };
         self.complete(view, too_long, out, warnings);
         self.fields = fields;
@@ -383,6 +396,46 @@ impl Reader {
         }
         out.record(self.start_line, self.start_offset, fields, too_long);
     }
+}
+
+/// The first CR or LF in `data`, having pushed on `ends` the position of every
+/// delimiter before it, and whether every byte before it is ASCII; `None` when a
+/// quote comes first or there is no line end. The line end and the quote are found
+/// by memchr's vector search; the delimiters of the line eight bytes at a time, each
+/// word's bytes equal to the delimiter found together (exactly: no false matches)
+/// and visited in order.
+fn split_line(data: &[u8], delimiter: u8, ends: &mut Vec<usize>) -> Option<(usize, bool)> {
+    let len = memchr::memchr2(b'\n', b'\r', data)?;
+    let line = data.get(..len)?;
+    if memchr::memchr(b'"', line).is_some() {
+        return None;
+    }
+    let d = u64::from_ne_bytes([delimiter; 8]);
+    let mut words = line.chunks_exact(8);
+    let mut base = 0;
+    let mut high = 0u64;
+    for word in &mut words {
+        let mut bytes = [0u8; 8];
+        bytes.copy_from_slice(word);
+        let w = u64::from_le_bytes(bytes);
+        high |= w;
+        // The top bit of each byte equal to the delimiter, and no other bit.
+        const LOW7: u64 = 0x7f7f_7f7f_7f7f_7f7f;
+        let x = w ^ d;
+        let mut hits = !(((x & LOW7).wrapping_add(LOW7)) | x | LOW7);
+        while hits != 0 {
+            ends.push(base + (hits.trailing_zeros() / 8) as usize);
+            hits &= hits - 1;
+        }
+        base += 8;
+    }
+    for (i, &b) in words.remainder().iter().enumerate() {
+        high |= u64::from(b);
+        if b == delimiter {
+            ends.push(base + i);
+        }
+    }
+    Some((len, high & 0x8080_8080_8080_8080 == 0))
 }
 
 /// Whether a record repeats the header (a second export appended to the first,
@@ -428,5 +481,51 @@ pub(crate) fn looks_like_utf16(first: &[u8]) -> Option<&'static str> {
         Some("every other byte of its first line is a NUL byte")
     } else {
         None
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::split_line;
+    use proptest::prelude::*;
+
+    /// What `split_line` must give, byte by byte.
+    fn plain(data: &[u8], delimiter: u8) -> (Option<(usize, bool)>, Vec<usize>) {
+        let mut ends = Vec::new();
+        for (i, &b) in data.iter().enumerate() {
+            match b {
+                b'\n' | b'\r' => return (Some((i, data[..i].is_ascii())), ends),
+                b'"' => return (None, ends),
+                _ if b == delimiter => ends.push(i),
+                _ => {}
+            }
+        }
+        (None, Vec::new())
+    }
+
+    proptest! {
+        /// Bytes drawn mostly from the ones that matter (and their neighbours, and
+        /// bytes with the top bit set, which a word-at-a-time search can confuse):
+        /// the same line end and the same delimiters as a byte-by-byte scan.
+        #[test]
+        fn split_line_equals_a_byte_by_byte_scan(
+            data in proptest::collection::vec(
+                prop_oneof![
+                    Just(b','), Just(b';'), Just(b'\t'), Just(b'"'), Just(b'\n'),
+                    Just(b'\r'), Just(b'+'), Just(b'-'), Just(0u8), Just(0x80u8),
+                    Just(0xacu8), Just(0xffu8), any::<u8>(), 0x61u8..0x7b,
+                ],
+                0..80,
+            ),
+            delimiter in prop_oneof![Just(b','), Just(b';'), Just(b'\t'), Just(0u8), Just(0xacu8)],
+        ) {
+            let mut ends = Vec::new();
+            let found = split_line(&data, delimiter, &mut ends);
+            let (want, want_ends) = plain(&data, delimiter);
+            prop_assert_eq!(found, want);
+            if found.is_some() {
+                prop_assert_eq!(ends, want_ends);
+            }
+        }
     }
 }

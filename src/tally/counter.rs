@@ -25,7 +25,7 @@ use std::hash::{BuildHasherDefault, Hasher};
 use jiff::Timestamp;
 
 use super::ids::id_hash;
-use super::{Arrivals, CellKey, CellTally, Tally, max_option};
+use super::{Arrivals, CellKey, CellTally, IdSet, Rejection, Tally, max_option};
 use crate::follow::Fields;
 use crate::rows::{self, Answer, Layout};
 
@@ -35,8 +35,12 @@ const ANSWER_CACHE: usize = 32;
 const CELL_CACHE: usize = 4096;
 /// Weight texts and distinct weights remembered.
 const WEIGHT_CACHE: usize = 256;
-/// Records read before they are counted together.
-const BATCH: usize = 32;
+/// Records read before they are counted together, on one thread.
+const BATCH: usize = 256;
+/// Cells of up to this many columns are looked up by their packed values.
+const PACKED_CELLS: usize = 4;
+/// Records whose ids are looked up together (see [`Counting::count`]).
+const AHEAD: usize = 32;
 /// The most columns a record may be read from in place (more go record by record).
 const MAX_USED: usize = 24;
 
@@ -69,26 +73,178 @@ impl Staged {
     }
 }
 
-/// Counts records into a [`Tally`] (see the module notes). Call [`Counter::flush`]
+/// Counts records into a [`Tally`] (see the module notes), on one thread: a
+/// [`Reading`] and a [`Counting`] joined by a [`Batch`]. Call [`Counter::flush`]
 /// before reading the tally: until then the sums of the cells are held here.
 #[derive(Debug)]
 pub struct Counter {
+    reading: Reading,
+    counting: Counting,
+    batch: Batch,
+}
+
+impl Counter {
+    /// A counter for records read through `layout`.
+    pub fn new(layout: &Layout) -> Counter {
+        Counter {
+            reading: Reading::new(layout),
+            counting: Counting::new(layout),
+            batch: Batch::default(),
+        }
+    }
+
+    /// The layout records are read through.
+    pub fn layout(&self) -> &Layout {
+        &self.reading.layout
+    }
+
+    /// Count one record (as [`Tally::add_record`] would) starting on `line`.
+    pub fn add(&mut self, tally: &mut Tally, fields: Fields<'_>, line: u64) {
+        self.reading.read(fields, line, &mut self.batch);
+        if self.batch.len() >= BATCH {
+            self.counting.count(tally, &mut self.batch);
+        }
+    }
+
+    /// Merge the staged sums into the tally. Exact: the tally then equals the one
+    /// built record by record.
+    pub fn flush(&mut self, tally: &mut Tally) {
+        self.counting.count(tally, &mut self.batch);
+        self.counting.flush(tally);
+    }
+
+    /// The two halves, to run on two threads (see `tally::tally_csv_sized`).
+    pub(crate) fn into_halves(self) -> (Reading, Counting) {
+        (self.reading, self.counting)
+    }
+}
+
+/// Records read, in file order, on their way from a [`Reading`] to a [`Counting`].
+/// Everything the counting side needs travels in it, so the two sides share nothing.
+#[derive(Debug, Default)]
+pub(crate) struct Batch {
+    entries: Vec<Entry>,
+    /// The answers of the records read in place, `measures` per record.
+    answers: Vec<Answer>,
+    /// The ids of the records read in place, back to back.
+    ids: Vec<u8>,
+    /// Unexpected answers (measure, raw value), in record order.
+    unexpected: Vec<(usize, RawAnswer)>,
+    /// The records that go record by record, in order.
+    records: Vec<csv::ByteRecord>,
+    /// Spellings of cells carried by their records (the cache of spellings is full).
+    own_spellings: Vec<Vec<String>>,
+    /// Cells, spellings and weights first met in this batch: they extend the
+    /// counting side's lists before any record of the batch is counted.
+    new_cells: Vec<CellKey>,
+    new_spellings: Vec<Vec<String>>,
+    new_weights: Vec<f64>,
+    /// After counting this batch, give the id set room for a file of this size:
+    /// (bytes read, total bytes).
+    pub(crate) reserve: Option<(u64, u64)>,
+}
+
+impl Batch {
+    /// Records in the batch.
+    pub(crate) fn len(&self) -> usize {
+        self.entries.len()
+    }
+
+    /// A record longer than the limit: rejected, in its place among the others.
+    pub(crate) fn push_too_long(&mut self, line: u64, bytes: u64) {
+        self.entries.push(Entry {
+            line,
+            what: What::TooLong(bytes),
+        });
+    }
+
+    fn clear(&mut self) {
+        self.entries.clear();
+        self.answers.clear();
+        self.ids.clear();
+        self.unexpected.clear();
+        self.records.clear();
+        self.own_spellings.clear();
+        self.new_cells.clear();
+        self.new_spellings.clear();
+        self.new_weights.clear();
+        self.reserve = None;
+    }
+}
+
+/// An unexpected answer as read: packed (see [`pack`]) when it is short, else its text.
+#[derive(Debug)]
+enum RawAnswer {
+    Packed(u128),
+    Text(String),
+}
+
+#[derive(Debug, Clone, Copy)]
+struct Entry {
+    line: u64,
+    what: What,
+}
+
+#[derive(Debug, Clone, Copy)]
+enum What {
+    /// Read in place.
+    Read(InPlace),
+    /// The next of the batch's `records`, counted record by record.
+    Record,
+    /// Longer than the limit (its size in bytes).
+    TooLong(u64),
+}
+
+/// The id hashes of a run of records (read from `ids`, a batch's), each one's slot in
+/// the id set asked for (prefetched) on the way.
+fn hashes_of(run: &[Entry], ids: &[u8], set: &IdSet) -> [Option<u128>; AHEAD] {
+    let mut hashes = [None; AHEAD];
+    for (hash, entry) in hashes.iter_mut().zip(run) {
+        if let What::Read(InPlace {
+            id: Some((start, end)),
+            ..
+        }) = entry.what
+        {
+            let h = id_hash(ids.get(start as usize..end as usize).unwrap_or_default());
+            set.prefetch(h);
+            *hash = Some(h);
+        }
+    }
+    hashes
+}
+
+/// A record read in place: what counting it needs.
+#[derive(Debug, Clone, Copy)]
+struct InPlace {
+    cell: u32,
+    /// Its cell's spelling among the spellings sent so far, or `None` for the next of
+    /// the batch's `own_spellings`.
+    spelling: Option<u32>,
+    weight: f64,
+    weight_index: Option<u32>,
+    time: Option<Timestamp>,
+    /// The id's bytes in the batch's `ids` (start, end), when it has one.
+    id: Option<(u32, u32)>,
+    /// How many of the batch's `unexpected` answers are this record's.
+    unexpected: u32,
+}
+
+/// The reading half: records in, [`Batch`] entries out. Touches no tally.
+#[derive(Debug)]
+pub(crate) struct Reading {
     layout: Layout,
     /// The columns the layout reads, sorted, each once (the order of the UTF-8 check).
     used: Vec<usize>,
-    staged: Vec<Staged>,
-    /// Raw cell values (joined) → (cell, spelling).
-    by_raw: HashMap<Vec<u8>, (usize, Option<usize>), BuildHasherDefault<Mix>>,
-    /// The raw spellings of cells in `by_raw`, trimmed: the label if it is the first
-    /// counted in its cell.
-    spellings: Vec<Vec<String>>,
-    /// The spelling of the record being read, when `by_raw` is full.
-    unlisted: Vec<String>,
-    waiting_slots: Vec<Waiting>,
-    waiting: usize,
-    by_key: HashMap<CellKey, usize>,
-    raw_key: Vec<u8>,
     slots: Slots,
+    /// Raw cell values (joined) → (cell, spelling).
+    by_raw: HashMap<Vec<u8>, (u32, Option<u32>), BuildHasherDefault<Mix>>,
+    /// The same for cells of at most [`PACKED_CELLS`] columns whose values are short
+    /// enough to pack: packed values → (cell, spelling).
+    by_packed: HashMap<[u128; PACKED_CELLS], (u32, Option<u32>), BuildHasherDefault<Mix>>,
+    /// Spellings sent so far.
+    spellings: u32,
+    by_key: HashMap<CellKey, u32>,
+    raw_key: Vec<u8>,
     weights: Weights,
     answers: Vec<Vec<(u128, Answer)>>,
     /// The last hour prefix (`YYYY-MM-DDTHH`) and the second its hour starts at
@@ -96,9 +252,8 @@ pub struct Counter {
     hour: Option<([u8; 13], Option<i64>)>,
 }
 
-impl Counter {
-    /// A counter for records read through `layout`.
-    pub fn new(layout: &Layout) -> Counter {
+impl Reading {
+    fn new(layout: &Layout) -> Reading {
         let used = layout.used_columns();
         let slot = |column: usize| used.iter().position(|&c| c == column).unwrap_or(0);
         let slots = Slots {
@@ -108,17 +263,14 @@ impl Counter {
             weight: layout.weight.map(slot),
             time: layout.time.map(slot),
         };
-        Counter {
+        Reading {
             slots,
             weights: Weights::default(),
             layout: layout.clone(),
             used,
-            staged: Vec::new(),
             by_raw: HashMap::default(),
-            spellings: Vec::new(),
-            unlisted: Vec::new(),
-            waiting_slots: vec![Waiting::default(); BATCH],
-            waiting: 0,
+            by_packed: HashMap::default(),
+            spellings: 0,
             by_key: HashMap::new(),
             raw_key: Vec::new(),
             answers: vec![Vec::new(); layout.measures.len()],
@@ -126,94 +278,78 @@ impl Counter {
         }
     }
 
-    /// The layout records are read through.
-    pub fn layout(&self) -> &Layout {
-        &self.layout
-    }
-
-    /// Count one record (as [`Tally::add_record`] would) starting on `line`.
-    pub fn add(&mut self, tally: &mut Tally, fields: Fields<'_>, line: u64) {
-        if self.read_in_place(fields, line) {
-            if self.waiting == BATCH {
-                self.count_waiting(tally);
-            }
-        } else {
-            // Records read in place wait in order; this one goes after them.
-            self.count_waiting(tally);
-            tally.add_record(&self.layout, &fields.to_byte_record(), line);
-        }
-    }
-
-    /// Merge the staged sums into the tally. Exact: the tally then equals the one
-    /// built record by record.
-    pub fn flush(&mut self, tally: &mut Tally) {
-        self.count_waiting(tally);
-        for staged in &mut self.staged {
-            if staged.cell.responses == 0 {
-                continue;
-            }
-            staged.flush_run();
-            staged.flush_counts(&self.weights.values);
-            let fresh = CellTally::new(staged.cell.label.clone(), staged.cell.measures.len());
-            let cell = std::mem::replace(&mut staged.cell, fresh);
-            match tally.cells.get_mut(&staged.key) {
-                Some(mine) => mine.merge(&cell),
-                None => {
-                    let mut cell = cell;
-                    for m in &mut cell.measures {
-                        m.round();
-                    }
-                    tally.cells.insert(staged.key.clone(), cell);
-                }
+    /// Read one record (starting on `line`) into the batch: in place when every check
+    /// passes, else whole, to be counted record by record.
+    pub(crate) fn read(&mut self, fields: Fields<'_>, line: u64, batch: &mut Batch) {
+        match self.read_in_place(fields, batch) {
+            Some(read) => batch.entries.push(Entry {
+                line,
+                what: What::Read(read),
+            }),
+            None => {
+                batch.records.push(fields.to_byte_record());
+                batch.entries.push(Entry {
+                    line,
+                    what: What::Record,
+                });
             }
         }
     }
 
-    /// Read a record into the next waiting slot; false (with nothing kept) when it
-    /// needs the record-by-record path. Touches nothing in the tally.
-    fn read_in_place(&mut self, fields: Fields<'_>, line: u64) -> bool {
+    /// Read a record in place; `None` (with nothing of it in the batch) when it needs
+    /// the record-by-record path.
+    fn read_in_place(&mut self, fields: Fields<'_>, batch: &mut Batch) -> Option<InPlace> {
         if fields.len() != self.layout.width || self.used.len() > MAX_USED {
-            return false;
+            return None;
         }
         // Every column the layout reads, checked as UTF-8 (in column order, as the
         // record-by-record path does) and trimmed as `str::trim` trims.
         let mut values: [&[u8]; MAX_USED] = [&[]; MAX_USED];
+        let ascii = fields.known_ascii();
         for (value, &column) in values.iter_mut().zip(&self.used) {
-            let Some(bytes) = fields.get(column) else {
-                return false;
-            };
-            *value = if bytes.is_ascii() {
+            let bytes = fields.get(column)?;
+            *value = if ascii || bytes.is_ascii() {
                 trim_ascii(bytes)
             } else {
-                match std::str::from_utf8(bytes) {
-                    Ok(text) => text.trim().as_bytes(),
-                    Err(_) => return false,
-                }
+                std::str::from_utf8(bytes).ok()?.trim().as_bytes()
             };
         }
         let slots = &self.slots;
         let value = |slot: usize| values.get(slot).copied().unwrap_or_default();
         let (weight, weight_index) = match slots.weight {
             None => (1.0, Some(0)),
-            Some(slot) => match self.weights.get(value(slot)) {
-                Some(w) => w,
-                None => return false,
-            },
+            Some(slot) => self.weights.get(value(slot), &mut batch.new_weights)?,
         };
         let time = match slots.time.map(value) {
             None | Some(b"") => None,
-            Some(raw) => match time_of(&mut self.hour, raw) {
-                Some(t) => Some(t),
-                None => return false,
-            },
+            Some(raw) => Some(time_of(&mut self.hour, raw)?),
         };
-        // The cell, from its raw values: (cell, spelling).
-        self.raw_key.clear();
-        for &slot in &slots.cells {
-            self.raw_key.extend_from_slice(value(slot));
-            self.raw_key.push(0xff); // never in UTF-8 text
+        // The cell, from its raw values: (cell, spelling). Short values of a few
+        // columns are looked up packed (see `pack`), others joined.
+        let mut packed = (slots.cells.len() <= PACKED_CELLS).then_some([0u128; PACKED_CELLS]);
+        if let Some(key) = packed.as_mut() {
+            for (word, &slot) in key.iter_mut().zip(&slots.cells) {
+                match pack(value(slot)) {
+                    Some(p) => *word = p,
+                    None => {
+                        packed = None;
+                        break;
+                    }
+                }
+            }
         }
-        let (cell, spelling) = match self.by_raw.get(self.raw_key.as_slice()) {
+        if packed.is_none() {
+            self.raw_key.clear();
+            for &slot in &slots.cells {
+                self.raw_key.extend_from_slice(value(slot));
+                self.raw_key.push(0xff); // never in UTF-8 text
+            }
+        }
+        let known = match &packed {
+            Some(key) => self.by_packed.get(key),
+            None => self.by_raw.get(self.raw_key.as_slice()),
+        };
+        let (cell, spelling) = match known {
             Some(&found) => found,
             None => {
                 let raw: Vec<&str> = slots
@@ -225,53 +361,39 @@ impl Counter {
                 let cell = match self.by_key.get(&key) {
                     Some(&i) => i,
                     None => {
-                        self.staged.push(Staged {
-                            key: key.clone(),
-                            cell: CellTally::new(Vec::new(), self.layout.measures.len()),
-                            counts: vec![Vec::new(); self.layout.measures.len()],
-                            run: None,
-                        });
-                        self.by_key.insert(key, self.staged.len() - 1);
-                        self.staged.len() - 1
+                        let i = self.by_key.len() as u32;
+                        batch.new_cells.push(key.clone());
+                        self.by_key.insert(key, i);
+                        i
                     }
                 };
                 let spelling: Vec<String> = raw.iter().map(|v| v.to_string()).collect();
-                if self.by_raw.len() < CELL_CACHE {
-                    self.spellings.push(spelling);
-                    let found = (cell, Some(self.spellings.len() - 1));
-                    self.by_raw.insert(self.raw_key.clone(), found);
+                if self.by_raw.len() + self.by_packed.len() < CELL_CACHE {
+                    batch.new_spellings.push(spelling);
+                    let found = (cell, Some(self.spellings));
+                    self.spellings += 1;
+                    match packed {
+                        Some(key) => self.by_packed.insert(key, found),
+                        None => self.by_raw.insert(self.raw_key.clone(), found),
+                    };
                     found
                 } else {
                     // The cache is full: this record carries its own spelling, so that
                     // nothing kept grows with the records.
-                    self.unlisted = spelling;
+                    batch.own_spellings.push(spelling);
                     (cell, None)
                 }
             }
         };
-        let Some(w) = self.waiting_slots.get_mut(self.waiting) else {
-            return false; // unreachable: there are BATCH slots and `add` empties them
-        };
-        w.line = line;
-        w.cell = cell;
-        w.spelling = spelling;
-        w.own_spelling = match spelling {
-            Some(_) => Vec::new(),
-            None => std::mem::take(&mut self.unlisted),
-        };
-        w.weight = weight;
-        w.weight_index = weight_index;
-        w.time = time;
-        w.id_text.clear();
-        w.id = match slots.id.map(value).filter(|raw| !raw.is_empty()) {
+        let id = match slots.id.map(value).filter(|raw| !raw.is_empty()) {
             Some(raw) => {
-                w.id_text.extend_from_slice(raw);
-                Some(id_hash(raw))
+                let start = batch.ids.len() as u32;
+                batch.ids.extend_from_slice(raw);
+                Some((start, batch.ids.len() as u32))
             }
             None => None,
         };
-        w.answers.clear();
-        w.unexpected.clear();
+        let mut unexpected = 0;
         for (m, (rule, &slot)) in self.layout.measures.iter().zip(&slots.measures).enumerate() {
             let raw = value(slot);
             let packed = pack(raw);
@@ -289,115 +411,232 @@ impl Counter {
                 }
             };
             if answer == Answer::Unexpected {
-                w.unexpected
-                    .push((m, std::str::from_utf8(raw).unwrap_or_default().to_string()));
-            }
-            w.answers.push(answer);
-        }
-        self.waiting += 1;
-        true
-    }
-
-    /// Count the records waiting, in order: first load the id set's slot of every
-    /// waiting id (independent loads, so the memory fetches overlap instead of
-    /// waiting one after another), then decide each id and add each response.
-    fn count_waiting(&mut self, tally: &mut Tally) {
-        let waiting = self.waiting_slots.get(..self.waiting).unwrap_or_default();
-        let mut warm = 0u128;
-        for w in waiting {
-            if let Some(hash) = w.id {
-                warm ^= tally.ids.peek(hash);
-            }
-        }
-        std::hint::black_box(warm);
-        for w in waiting {
-            tally.rows_read += 1;
-            if let Some(hash) = w.id
-                && !tally.ids.insert_hash(hash)
-            {
-                tally.note_duplicate(w.line, &w.id_text);
-                continue;
-            }
-            let Some(staged) = self.staged.get_mut(w.cell) else {
-                continue; // unreachable: cells index `staged`
-            };
-            if staged.cell.responses == 0 && staged.cell.label.is_empty() {
-                // The cell's first counted response names it (if the tally has not).
-                staged.cell.label = match tally.cells.get(&staged.key) {
-                    Some(known) => known.label.clone(),
-                    None => match w.spelling {
-                        Some(i) => self.spellings.get(i).cloned().unwrap_or_default(),
-                        None => w.own_spelling.clone(),
-                    },
+                let raw = match packed {
+                    Some(p) => RawAnswer::Packed(p),
+                    None => RawAnswer::Text(std::str::from_utf8(raw).unwrap_or_default().into()),
                 };
+                batch.unexpected.push((m, raw));
+                unexpected += 1;
             }
-            staged.cell.responses += 1;
-            for (m, &answer) in w.answers.iter().enumerate() {
-                let counted = match (answer, w.weight_index) {
-                    (Answer::Yes | Answer::No, Some(i)) => {
-                        staged.counts.get_mut(m).is_some_and(|counts| {
-                            if counts.len() <= i {
-                                counts.resize(i + 1, [0, 0]);
-                            }
-                            counts[i][usize::from(answer == Answer::No)] += 1;
-                            true
-                        })
-                    }
-                    _ => false,
-                };
-                if !counted && let Some(measure) = staged.cell.measures.get_mut(m) {
-                    measure.add_unrounded(answer, w.weight);
-                }
-            }
-            for (m, raw) in &w.unexpected {
-                tally.note_unexpected(*m, raw);
-            }
-            match w.time {
-                None => staged.cell.arrivals.untimed += 1,
-                Some(t) => {
-                    let hour = Arrivals::hour_of(t);
-                    match &mut staged.run {
-                        Some((h, count)) if *h == hour => *count += 1,
-                        _ => {
-                            staged.flush_run();
-                            staged.run = Some((hour, 1));
-                        }
-                    }
-                    let arrivals = &mut staged.cell.arrivals;
-                    arrivals.first = Some(arrivals.first.map_or(t, |f| f.min(t)));
-                    arrivals.latest = Some(arrivals.latest.map_or(t, |l| l.max(t)));
-                    tally.newest = max_option(tally.newest, Some(t));
-                }
-            }
+            batch.answers.push(answer);
         }
-        self.waiting = 0;
+        Some(InPlace {
+            cell,
+            spelling,
+            weight,
+            weight_index,
+            time,
+            id,
+            unexpected,
+        })
     }
 }
 
-/// A record read in place, waiting to be counted.
-#[derive(Debug, Default, Clone)]
-struct Waiting {
-    line: u64,
-    /// The id's hash, and its text (for the list of duplicates).
-    id: Option<u128>,
-    id_text: Vec<u8>,
-    cell: usize,
-    /// The raw spelling of its cell among `Counter::spellings`, or `None` with the
-    /// spelling in `own_spelling` (when the cache of spellings is full).
-    spelling: Option<usize>,
-    own_spelling: Vec<String>,
-    weight: f64,
-    weight_index: Option<usize>,
-    time: Option<Timestamp>,
-    answers: Vec<Answer>,
-    /// Unexpected answers: (measure, raw value).
-    unexpected: Vec<(usize, String)>,
+/// The counting half: [`Batch`]es in, in file order, into the tally.
+#[derive(Debug)]
+pub(crate) struct Counting {
+    layout: Layout,
+    staged: Vec<Staged>,
+    /// The raw spellings of cells, trimmed: the label if it is the first counted in
+    /// its cell.
+    spellings: Vec<Vec<String>>,
+    /// The distinct weights counted per weight (index 0 is the weight 1).
+    weights: Vec<f64>,
+    /// Short unexpected answers already counted once, by (measure, packed answer):
+    /// the value the tally counts them under, and how many more wait to be added.
+    unexpected: HashMap<(usize, u128), (String, u64), BuildHasherDefault<Mix>>,
+}
+
+impl Counting {
+    fn new(layout: &Layout) -> Counting {
+        Counting {
+            layout: layout.clone(),
+            staged: Vec::new(),
+            spellings: Vec::new(),
+            weights: vec![1.0],
+            unexpected: HashMap::default(),
+        }
+    }
+
+    /// Count the batch's records in order, and empty it (keeping its room). The
+    /// records go in runs of [`AHEAD`]: the id set's slots for the next run are asked
+    /// for (prefetched) before this run is counted, so the memory fetches overlap with
+    /// each other and with the counting instead of waiting one after another.
+    pub(crate) fn count(&mut self, tally: &mut Tally, batch: &mut Batch) {
+        let measures = self.layout.measures.len();
+        for key in batch.new_cells.drain(..) {
+            self.staged.push(Staged {
+                key,
+                cell: CellTally::new(Vec::new(), measures),
+                counts: vec![Vec::new(); measures],
+                run: None,
+            });
+        }
+        self.spellings.append(&mut batch.new_spellings);
+        self.weights.append(&mut batch.new_weights);
+        let (mut answers, mut unexpected) = (0, 0);
+        let (mut records, mut own) = (batch.records.iter(), batch.own_spellings.iter_mut());
+        let mut runs = batch.entries.chunks(AHEAD).peekable();
+        let mut next = runs
+            .peek()
+            .map(|run| hashes_of(run, &batch.ids, &tally.ids));
+        while let (Some(run), Some(hashes)) = (runs.next(), next.take()) {
+            next = runs
+                .peek()
+                .map(|run| hashes_of(run, &batch.ids, &tally.ids));
+            for (&hash, entry) in hashes.iter().zip(run) {
+                let line = entry.line;
+                let read = match entry.what {
+                    What::Read(read) => read,
+                    What::Record => {
+                        if let Some(record) = records.next() {
+                            tally.add_record(&self.layout, record, line);
+                        }
+                        continue;
+                    }
+                    What::TooLong(bytes) => {
+                        tally.reject(Rejection {
+                            line,
+                            reason: rows::Reason::TooLong { bytes },
+                        });
+                        continue;
+                    }
+                };
+                let mine = answers..answers + measures;
+                answers += measures;
+                let theirs = unexpected..unexpected + read.unexpected as usize;
+                unexpected += read.unexpected as usize;
+                let own_spelling = match read.spelling {
+                    Some(_) => None,
+                    None => own.next(),
+                };
+                tally.rows_read += 1;
+                if let Some(hash) = hash
+                    && !tally.ids.insert_hash(hash)
+                {
+                    let (start, end) = read.id.unwrap_or_default();
+                    let id = batch.ids.get(start as usize..end as usize);
+                    tally.note_duplicate(line, id.unwrap_or_default());
+                    continue;
+                }
+                let Some(staged) = self.staged.get_mut(read.cell as usize) else {
+                    continue; // unreachable: new cells arrive before their records
+                };
+                if staged.cell.responses == 0 && staged.cell.label.is_empty() {
+                    // The cell's first counted response names it (if the tally has not).
+                    staged.cell.label = match tally.cells.get(&staged.key) {
+                        Some(known) => known.label.clone(),
+                        None => match (read.spelling, own_spelling) {
+                            (Some(i), _) => {
+                                self.spellings.get(i as usize).cloned().unwrap_or_default()
+                            }
+                            (None, Some(own)) => std::mem::take(own),
+                            (None, None) => Vec::new(),
+                        },
+                    };
+                }
+                staged.cell.responses += 1;
+                let answers = batch.answers.get(mine).unwrap_or_default();
+                for (m, &answer) in answers.iter().enumerate() {
+                    let counted = match (answer, read.weight_index) {
+                        (Answer::Yes | Answer::No, Some(i)) => {
+                            let i = i as usize;
+                            staged.counts.get_mut(m).is_some_and(|counts| {
+                                if counts.len() <= i {
+                                    counts.resize(i + 1, [0, 0]);
+                                }
+                                counts[i][usize::from(answer == Answer::No)] += 1;
+                                true
+                            })
+                        }
+                        _ => false,
+                    };
+                    if !counted && let Some(measure) = staged.cell.measures.get_mut(m) {
+                        measure.add_unrounded(answer, read.weight);
+                    }
+                }
+                for (m, raw) in batch.unexpected.get(theirs).unwrap_or_default() {
+                    match raw {
+                        RawAnswer::Packed(p) => match self.unexpected.get_mut(&(*m, *p)) {
+                            Some((_, count)) => *count += 1,
+                            None => {
+                                let text = unpack(*p);
+                                let text = std::str::from_utf8(&text).unwrap_or_default();
+                                if let Some(key) = tally.note_unexpected(*m, text) {
+                                    self.unexpected.insert((*m, *p), (key, 0));
+                                }
+                            }
+                        },
+                        RawAnswer::Text(text) => {
+                            tally.note_unexpected(*m, text);
+                        }
+                    }
+                }
+                match read.time {
+                    None => staged.cell.arrivals.untimed += 1,
+                    Some(t) => {
+                        let hour = Arrivals::hour_of(t);
+                        match &mut staged.run {
+                            Some((h, count)) if *h == hour => *count += 1,
+                            _ => {
+                                staged.flush_run();
+                                staged.run = Some((hour, 1));
+                            }
+                        }
+                        let arrivals = &mut staged.cell.arrivals;
+                        arrivals.first = Some(arrivals.first.map_or(t, |f| f.min(t)));
+                        arrivals.latest = Some(arrivals.latest.map_or(t, |l| l.max(t)));
+                        tally.newest = max_option(tally.newest, Some(t));
+                    }
+                }
+            }
+        }
+        if let Some((read, total)) = batch.reserve {
+            tally.reserve_ids_for(read, total);
+        }
+        batch.clear();
+    }
+
+    /// Merge the staged sums into the tally. Exact: the tally then equals the one
+    /// built record by record.
+    pub(crate) fn flush(&mut self, tally: &mut Tally) {
+        for (&(m, _), (key, count)) in &mut self.unexpected {
+            if *count > 0 {
+                tally.add_unexpected(m, key, *count);
+                *count = 0;
+            }
+        }
+        for staged in &mut self.staged {
+            if staged.cell.responses == 0 {
+                continue;
+            }
+            staged.flush_run();
+            staged.flush_counts(&self.weights);
+            let fresh = CellTally::new(staged.cell.label.clone(), staged.cell.measures.len());
+            let cell = std::mem::replace(&mut staged.cell, fresh);
+            match tally.cells.get_mut(&staged.key) {
+                Some(mine) => mine.merge(&cell),
+                None => {
+                    let mut cell = cell;
+                    for m in &mut cell.measures {
+                        m.round();
+                    }
+                    tally.cells.insert(staged.key.clone(), cell);
+                }
+            }
+        }
+    }
 }
 
 /// Surrounding white space removed from ASCII text, as `str::trim` removes it (which,
 /// unlike `trim_ascii`, also removes the vertical tab).
 fn trim_ascii(bytes: &[u8]) -> &[u8] {
     let space = |b: &u8| matches!(b, b' ' | b'\t' | b'\n' | b'\x0b' | b'\x0c' | b'\r');
+    // The usual case: nothing to trim.
+    match (bytes.first(), bytes.last()) {
+        (Some(first), Some(last)) if !space(first) && !space(last) => return bytes,
+        _ => {}
+    }
     let start = bytes.iter().position(|b| !space(b)).unwrap_or(bytes.len());
     let end = bytes
         .iter()
@@ -416,19 +655,48 @@ struct Slots {
     time: Option<usize>,
 }
 
-/// Up to 15 bytes packed into one number (the bytes, then the length in the top
+/// Up to 15 bytes packed into one number (byte i at bits 8i, the length in the top
 /// byte), so that equal numbers mean equal bytes; `None` for longer text.
 fn pack(bytes: &[u8]) -> Option<u128> {
-    if bytes.len() > 15 {
-        return None;
-    }
-    // Shifted in byte by byte: copying into an array and reading it back as one
-    // number stalls the processor (a wide load right after narrow stores).
-    let mut word = (bytes.len() as u128) << 120;
-    for (i, &b) in bytes.iter().enumerate() {
-        word |= u128::from(b) << (8 * i);
-    }
-    Some(word)
+    let len = bytes.len();
+    // Whole words read straight from the text, two of them overlapping when the
+    // length is not a multiple of their size (the bytes they share are the same, so
+    // or-ing them is exact). Never a copy into an array read back as one number,
+    // which stalls the processor (a wide load right after narrow stores).
+    let u64_at = |i: usize| {
+        bytes
+            .get(i..i + 8)
+            .and_then(|b| b.try_into().ok())
+            .map_or(0, u64::from_le_bytes)
+    };
+    let u32_at = |i: usize| {
+        bytes
+            .get(i..i + 4)
+            .and_then(|b| b.try_into().ok())
+            .map_or(0, u32::from_le_bytes)
+    };
+    let (low, high) = match len {
+        0..=3 => {
+            let low = bytes
+                .iter()
+                .enumerate()
+                .fold(0u64, |w, (i, &b)| w | u64::from(b) << (8 * i));
+            (low, 0)
+        }
+        4..=8 => {
+            let low = u64::from(u32_at(0)) | u64::from(u32_at(len - 4)) << (8 * (len - 4));
+            (low, 0)
+        }
+        9..=15 => (u64_at(0), u64_at(len - 8) >> (8 * (16 - len))),
+        _ => return None,
+    };
+    Some(u128::from(high | (len as u64) << 56) << 64 | u128::from(low))
+}
+
+/// The bytes [`pack`] packed.
+fn unpack(word: u128) -> Vec<u8> {
+    let len = (word >> 120) as usize;
+    (0..len.min(15)).map(|i| (word >> (8 * i)) as u8).collect()
 }
 
 /// The weights read so far, by their trimmed text (a weight is a pure function of its
@@ -437,9 +705,8 @@ fn pack(bytes: &[u8]) -> Option<u128> {
 /// column).
 #[derive(Debug)]
 struct Weights {
-    by_text: HashMap<u128, (f64, Option<usize>), BuildHasherDefault<Mix>>,
-    by_value: HashMap<u64, usize, BuildHasherDefault<Mix>>,
-    values: Vec<f64>,
+    by_text: HashMap<u128, (f64, Option<u32>), BuildHasherDefault<Mix>>,
+    by_value: HashMap<u64, u32, BuildHasherDefault<Mix>>,
 }
 
 impl Default for Weights {
@@ -447,15 +714,15 @@ impl Default for Weights {
         Weights {
             by_text: HashMap::default(),
             by_value: HashMap::from_iter([(1f64.to_bits(), 0)]),
-            values: vec![1.0],
         }
     }
 }
 
 impl Weights {
     /// The weight the text gives and its index (`None` for a weight counted one by
-    /// one), or `None` when it is not a valid weight.
-    fn get(&mut self, raw: &[u8]) -> Option<(f64, Option<usize>)> {
+    /// one), or `None` when it is not a valid weight. A weight given an index here is
+    /// pushed on `new`, so the counting side's list of weights follows this one's.
+    fn get(&mut self, raw: &[u8], new: &mut Vec<f64>) -> Option<(f64, Option<u32>)> {
         let packed = pack(raw);
         if let Some(&known) = packed.and_then(|p| self.by_text.get(&p)) {
             return Some(known);
@@ -463,10 +730,11 @@ impl Weights {
         let w = rows::parse_weight(std::str::from_utf8(raw).ok()?).ok()?;
         let index = match self.by_value.get(&w.to_bits()) {
             Some(&i) => Some(i),
-            None if crate::tally::repeats_exactly(w) && self.values.len() < WEIGHT_CACHE => {
-                self.values.push(w);
-                self.by_value.insert(w.to_bits(), self.values.len() - 1);
-                Some(self.values.len() - 1)
+            None if crate::tally::repeats_exactly(w) && self.by_value.len() < WEIGHT_CACHE => {
+                let i = self.by_value.len() as u32;
+                self.by_value.insert(w.to_bits(), i);
+                new.push(w);
+                Some(i)
             }
             None => None,
         };
@@ -622,6 +890,34 @@ mod tests {
         for (a, b) in fast.cells.values().zip(slow.cells.values()) {
             assert_eq!(a.label, b.label);
         }
+    }
+
+    /// Packing keeps every byte and the length (so equal numbers mean equal bytes),
+    /// and refuses more than 15 bytes.
+    #[test]
+    fn packed_bytes_unpack_to_themselves() {
+        let mut rng = ChaCha8Rng::seed_from_u64(5);
+        for len in 0..=16 {
+            for _ in 0..50 {
+                let bytes: Vec<u8> = (0..len).map(|_| rng.random()).collect();
+                match pack(&bytes) {
+                    Some(word) => {
+                        assert_eq!(unpack(word), bytes);
+                        // Byte by byte, as the layout says.
+                        let plain = bytes
+                            .iter()
+                            .enumerate()
+                            .fold((len as u128) << 120, |w, (i, &b)| {
+                                w | u128::from(b) << (8 * i)
+                            });
+                        assert_eq!(word, plain);
+                    }
+                    None => assert_eq!(len, 16),
+                }
+            }
+        }
+        assert_ne!(pack(b""), pack(b"\0"));
+        assert_ne!(pack(b"a"), pack(b"a\0"));
     }
 
     #[test]
