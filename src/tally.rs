@@ -21,7 +21,6 @@
 use std::collections::{BTreeMap, BTreeSet};
 use std::io::Read;
 use std::sync::atomic::{AtomicU64, Ordering};
-use std::sync::mpsc;
 
 use jiff::Timestamp;
 
@@ -30,9 +29,9 @@ use crate::rows::{self, Answer, Layout, Rejection, Response};
 
 mod counter;
 mod ids;
+mod pipe;
 
 pub use counter::Counter;
-use counter::{Batch, Counting, Reading};
 use ids::IdSet;
 
 /// Rejections and duplicates listed in full (the rest are counted).
@@ -764,208 +763,18 @@ pub fn tally_csv<R: Read, E>(
 /// that the id set can be given its room once the first block shows how many ids a
 /// byte holds, instead of growing step by step. The result is the same.
 ///
-/// Two threads share the work: this one reads the bytes, splits the records and reads
-/// each one ([`counter::Reading`]); the other counts them in file order
-/// ([`counter::Counting`]: the id set, the sums, the lists), taking batches of
-/// [`PIPE_BATCH`] records through a channel. The tally is the one a single thread
+/// Three threads share the work (see the `pipe` module): the calling thread reads
+/// the bytes and splits the records, it and a helper read the records, and a
+/// counting thread counts them in file order. The tally is the one a single thread
 /// gives, since everything that depends on order happens on the counting side in
 /// file order.
 pub fn tally_csv_sized<R: Read, E>(
     layout_for: impl FnOnce(&[&str]) -> Result<Layout, E>,
-    mut reader: R,
+    reader: R,
     delimiter: u8,
     size: Option<u64>,
 ) -> Result<(Vec<String>, Tally), TallyError<E>> {
-    std::thread::scope(|scope| {
-        let (to_counting, batches) = mpsc::sync_channel::<Batch>(QUEUED);
-        let (to_reading, spare) = mpsc::channel::<Batch>();
-        let (start, started) = mpsc::sync_channel::<(Counting, Tally)>(1);
-        let counting = scope.spawn(move || {
-            let (mut counting, mut tally) = started.recv().ok()?;
-            for mut batch in batches {
-                counting.count(&mut tally, &mut batch);
-                // The reading side may have finished; then the batch is dropped.
-                let _ = to_reading.send(batch);
-            }
-            counting.flush(&mut tally);
-            Some(tally)
-        });
-        let mut sink = CsvSink {
-            layout_for: Some(layout_for),
-            state: None,
-            start: Some(start),
-            to_counting,
-            spare,
-            problem: None,
-        };
-        let header = read_all(&mut sink, &mut reader, delimiter, size)?;
-        sink.send();
-        // Every sender goes, so that the counting thread ends (it may still be
-        // waiting for its start when there was no header).
-        drop(sink);
-        let tally = counting
-            .join()
-            .map_err(|_| TallyError::Io("the counting thread stopped unexpectedly".into()))?;
-        match (header, tally) {
-            (Some(header), Some(tally)) => Ok((header, tally)),
-            _ => Err(TallyError::NoHeader),
-        }
-    })
-}
-
-/// Feed the whole input through the record reader into the sink; the header, once
-/// there is one.
-fn read_all<R: Read, E, F: FnOnce(&[&str]) -> Result<Layout, E>>(
-    sink: &mut CsvSink<E, F>,
-    reader: &mut R,
-    delimiter: u8,
-    size: Option<u64>,
-) -> Result<Option<Vec<String>>, TallyError<E>> {
-    let mut sized = size.is_none();
-    let mut parser = crate::follow::Reader::new(delimiter, crate::follow::RECORD_LIMIT);
-    let mut warnings = Vec::new();
-    let mut buffer = vec![0u8; READ_BLOCK];
-    // Bytes at the front of `buffer` not taken yet (the start of a byte-order mark).
-    let mut kept = 0;
-    let mut head: Vec<u8> = Vec::new();
-    loop {
-        let got = loop {
-            match reader.read(&mut buffer[kept..]) {
-                Ok(k) => break k,
-                Err(e) if e.kind() == std::io::ErrorKind::Interrupted => {}
-                Err(e) => return Err(TallyError::Io(e.to_string())),
-            }
-        };
-        let data = &buffer[..kept + got];
-        if head.len() < 64 {
-            let room = 64 - head.len();
-            head.extend_from_slice(
-                data.get(kept..(kept + room).min(data.len()))
-                    .unwrap_or_default(),
-            );
-            if let Some(why) = crate::follow::looks_like_utf16(&head) {
-                return Err(TallyError::Io(format!(
-                    "the file looks like {why}: save it as UTF-8"
-                )));
-            }
-        }
-        let took = parser.feed(data, sink, &mut warnings);
-        if got == 0 {
-            parser.finish(sink, &mut warnings);
-        }
-        if let Some(problem) = sink.problem.take() {
-            return Err(problem);
-        }
-        if !sized && let (Some(total), Some((_, _, batch))) = (size, sink.state.as_mut()) {
-            // Room for the ids once the first block shows how many a byte holds.
-            batch.reserve = Some((parser.taken(), total));
-            sink.send();
-            sized = true;
-        }
-        warnings.clear();
-        if got == 0 {
-            break;
-        }
-        buffer.copy_within(took..kept + got, 0);
-        kept = kept + got - took;
-    }
-    Ok(sink.state.as_ref().map(|(header, _, _)| header.clone()))
-}
-
-/// How many bytes a batch read asks for at a time.
-const READ_BLOCK: usize = 1 << 20;
-/// Records the reading side of [`tally_csv_sized`] sends at a time.
-const PIPE_BATCH: usize = 2048;
-/// Batches that may wait for the counting side.
-const QUEUED: usize = 4;
-
-/// Where [`tally_csv`]'s reader hands the header and the records: read into batches
-/// that go to the counting thread.
-struct CsvSink<E, F> {
-    layout_for: Option<F>,
-    /// The header, the reading half and the batch being filled.
-    state: Option<(Vec<String>, Reading, Batch)>,
-    /// Where the counting half and the tally go once the header is read.
-    start: Option<mpsc::SyncSender<(Counting, Tally)>>,
-    to_counting: mpsc::SyncSender<Batch>,
-    /// Batches the counting side has emptied, to fill again.
-    spare: mpsc::Receiver<Batch>,
-    problem: Option<TallyError<E>>,
-}
-
-impl<E, F> CsvSink<E, F> {
-    /// Send the batch being filled (if it holds anything) to the counting side.
-    fn send(&mut self) {
-        let Some((_, _, batch)) = self.state.as_mut() else {
-            return;
-        };
-        if batch.len() == 0 && batch.reserve.is_none() {
-            return;
-        }
-        let next = self.spare.try_recv().unwrap_or_default();
-        let full = std::mem::replace(batch, next);
-        if self.to_counting.send(full).is_err() {
-            self.problem = Some(TallyError::Io(
-                "the counting thread stopped unexpectedly".into(),
-            ));
-        }
-    }
-}
-
-impl<E, F: FnOnce(&[&str]) -> Result<Layout, E>> crate::follow::Out for CsvSink<E, F> {
-    fn header(&mut self, header: &csv::ByteRecord) {
-        let Some(resolve) = self.layout_for.take() else {
-            return;
-        };
-        let names = header
-            .iter()
-            .enumerate()
-            .map(|(i, field)| {
-                std::str::from_utf8(field)
-                    .map(str::to_string)
-                    .map_err(|_| TallyError::HeaderNotUtf8 { column: i + 1 })
-            })
-            .collect::<Result<Vec<String>, _>>();
-        let names = match names {
-            Ok(names) => names,
-            Err(e) => {
-                self.problem = Some(e);
-                return;
-            }
-        };
-        let refs: Vec<&str> = names.iter().map(String::as_str).collect();
-        match resolve(&refs) {
-            Ok(layout) => {
-                let tally = Tally::new(layout.measures.len());
-                let (reading, counting) = Counter::new(&layout).into_halves();
-                if let Some(start) = self.start.take() {
-                    // A closed channel shows up when the first batch is sent.
-                    let _ = start.send((counting, tally));
-                }
-                self.state = Some((names, reading, Batch::default()));
-            }
-            Err(e) => self.problem = Some(TallyError::Layout(e)),
-        }
-    }
-
-    fn record(
-        &mut self,
-        line: u64,
-        _offset: u64,
-        fields: crate::follow::Fields<'_>,
-        too_long: Option<u64>,
-    ) {
-        let Some((_, reading, batch)) = self.state.as_mut() else {
-            return;
-        };
-        match too_long {
-            Some(bytes) => batch.push_too_long(line, bytes),
-            None => reading.read(fields, line, batch),
-        }
-        if batch.len() >= PIPE_BATCH {
-            self.send();
-        }
-    }
+    pipe::tally(layout_for, reader, delimiter, size)
 }
 
 #[cfg(test)]

@@ -41,6 +41,22 @@ pub struct Fields<'a> {
 }
 
 impl<'a> Fields<'a> {
+    /// Fields as [`Fields::parts`] gave them (copied elsewhere, say).
+    pub(crate) fn from_parts(bytes: &'a [u8], ends: &'a [usize], gap: usize, ascii: bool) -> Self {
+        Fields {
+            bytes,
+            ends,
+            gap,
+            ascii,
+        }
+    }
+
+    /// The bytes, the field ends, the gap between fields and whether every byte is
+    /// known to be ASCII: what [`Fields::from_parts`] takes back.
+    pub(crate) fn parts(&self) -> (&'a [u8], &'a [usize], usize, bool) {
+        (self.bytes, self.ends, self.gap, self.ascii)
+    }
+
     /// Whether every byte of every field is known to be ASCII (a record split in
     /// place is checked as it is split; false when not known).
     pub fn known_ascii(&self) -> bool {

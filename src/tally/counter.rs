@@ -21,6 +21,7 @@
 
 use std::collections::HashMap;
 use std::hash::{BuildHasherDefault, Hasher};
+use std::sync::{Arc, Mutex};
 
 use jiff::Timestamp;
 
@@ -86,9 +87,10 @@ pub struct Counter {
 impl Counter {
     /// A counter for records read through `layout`.
     pub fn new(layout: &Layout) -> Counter {
+        let registry = Shared::default();
         Counter {
-            reading: Reading::new(layout),
-            counting: Counting::new(layout),
+            reading: Reading::new(layout, Arc::clone(&registry)),
+            counting: Counting::new(layout, registry),
             batch: Batch::default(),
         }
     }
@@ -113,7 +115,7 @@ impl Counter {
         self.counting.flush(tally);
     }
 
-    /// The two halves, to run on two threads (see `tally::tally_csv_sized`).
+    /// The two halves, to run on other threads (see `tally::tally_csv_sized`).
     pub(crate) fn into_halves(self) -> (Reading, Counting) {
         (self.reading, self.counting)
     }
@@ -134,11 +136,6 @@ pub(crate) struct Batch {
     records: Vec<csv::ByteRecord>,
     /// Spellings of cells carried by their records (the cache of spellings is full).
     own_spellings: Vec<Vec<String>>,
-    /// Cells, spellings and weights first met in this batch: they extend the
-    /// counting side's lists before any record of the batch is counted.
-    new_cells: Vec<CellKey>,
-    new_spellings: Vec<Vec<String>>,
-    new_weights: Vec<f64>,
     /// After counting this batch, give the id set room for a file of this size:
     /// (bytes read, total bytes).
     pub(crate) reserve: Option<(u64, u64)>,
@@ -165,9 +162,6 @@ impl Batch {
         self.unexpected.clear();
         self.records.clear();
         self.own_spellings.clear();
-        self.new_cells.clear();
-        self.new_spellings.clear();
-        self.new_weights.clear();
         self.reserve = None;
     }
 }
@@ -229,6 +223,42 @@ struct InPlace {
     unexpected: u32,
 }
 
+/// The cells, spellings and weights met so far, numbered in the order they were
+/// first met, shared by every [`Reading`] of one count and its [`Counting`]: a
+/// record refers to them by number, and they only grow, so every number in a batch
+/// is known by the time the batch is counted. Consulted only when a reading side's
+/// own caches miss.
+#[derive(Debug)]
+pub(crate) struct Registry {
+    by_key: HashMap<CellKey, u32>,
+    cells: Vec<CellKey>,
+    /// Raw spellings of cells, trimmed: the label if it is the first counted in its
+    /// cell.
+    spellings: Vec<Vec<String>>,
+    /// The distinct weights counted per weight (index 0 is the weight 1).
+    by_weight: HashMap<u64, u32, BuildHasherDefault<Mix>>,
+    weights: Vec<f64>,
+}
+
+impl Default for Registry {
+    fn default() -> Registry {
+        Registry {
+            by_key: HashMap::new(),
+            cells: Vec::new(),
+            spellings: Vec::new(),
+            by_weight: HashMap::from_iter([(1f64.to_bits(), 0)]),
+            weights: vec![1.0],
+        }
+    }
+}
+
+type Shared = Arc<Mutex<Registry>>;
+
+fn lock(registry: &Shared) -> std::sync::MutexGuard<'_, Registry> {
+    // A thread that panicked while holding it left it whole (every change is one push).
+    registry.lock().unwrap_or_else(|e| e.into_inner())
+}
+
 /// The reading half: records in, [`Batch`] entries out. Touches no tally.
 #[derive(Debug)]
 pub(crate) struct Reading {
@@ -241,9 +271,7 @@ pub(crate) struct Reading {
     /// The same for cells of at most [`PACKED_CELLS`] columns whose values are short
     /// enough to pack: packed values → (cell, spelling).
     by_packed: HashMap<[u128; PACKED_CELLS], (u32, Option<u32>), BuildHasherDefault<Mix>>,
-    /// Spellings sent so far.
-    spellings: u32,
-    by_key: HashMap<CellKey, u32>,
+    registry: Shared,
     raw_key: Vec<u8>,
     weights: Weights,
     answers: Vec<Vec<(u128, Answer)>>,
@@ -253,7 +281,7 @@ pub(crate) struct Reading {
 }
 
 impl Reading {
-    fn new(layout: &Layout) -> Reading {
+    fn new(layout: &Layout, registry: Shared) -> Reading {
         let used = layout.used_columns();
         let slot = |column: usize| used.iter().position(|&c| c == column).unwrap_or(0);
         let slots = Slots {
@@ -270,12 +298,17 @@ impl Reading {
             used,
             by_raw: HashMap::default(),
             by_packed: HashMap::default(),
-            spellings: 0,
-            by_key: HashMap::new(),
+            registry,
             raw_key: Vec::new(),
             answers: vec![Vec::new(); layout.measures.len()],
             hour: None,
         }
+    }
+
+    /// Another reading half for the same count (for another thread): the same
+    /// registry, its own caches.
+    pub(crate) fn another(&self) -> Reading {
+        Reading::new(&self.layout, Arc::clone(&self.registry))
     }
 
     /// Read one record (starting on `line`) into the batch: in place when every check
@@ -318,7 +351,7 @@ impl Reading {
         let value = |slot: usize| values.get(slot).copied().unwrap_or_default();
         let (weight, weight_index) = match slots.weight {
             None => (1.0, Some(0)),
-            Some(slot) => self.weights.get(value(slot), &mut batch.new_weights)?,
+            Some(slot) => self.weights.get(value(slot), &self.registry)?,
         };
         let time = match slots.time.map(value) {
             None | Some(b"") => None,
@@ -358,20 +391,22 @@ impl Reading {
                     .map(|&slot| std::str::from_utf8(value(slot)).unwrap_or_default())
                     .collect();
                 let key = CellKey::of(&raw);
-                let cell = match self.by_key.get(&key) {
+                let spelling: Vec<String> = raw.iter().map(|v| v.to_string()).collect();
+                let cached = self.by_raw.len() + self.by_packed.len() < CELL_CACHE;
+                let mut registry = lock(&self.registry);
+                let cell = match registry.by_key.get(&key) {
                     Some(&i) => i,
                     None => {
-                        let i = self.by_key.len() as u32;
-                        batch.new_cells.push(key.clone());
-                        self.by_key.insert(key, i);
+                        let i = registry.cells.len() as u32;
+                        registry.cells.push(key.clone());
+                        registry.by_key.insert(key, i);
                         i
                     }
                 };
-                let spelling: Vec<String> = raw.iter().map(|v| v.to_string()).collect();
-                if self.by_raw.len() + self.by_packed.len() < CELL_CACHE {
-                    batch.new_spellings.push(spelling);
-                    let found = (cell, Some(self.spellings));
-                    self.spellings += 1;
+                if cached {
+                    registry.spellings.push(spelling);
+                    let found = (cell, Some(registry.spellings.len() as u32 - 1));
+                    drop(registry);
                     match packed {
                         Some(key) => self.by_packed.insert(key, found),
                         None => self.by_raw.insert(self.raw_key.clone(), found),
@@ -437,10 +472,9 @@ impl Reading {
 pub(crate) struct Counting {
     layout: Layout,
     staged: Vec<Staged>,
-    /// The raw spellings of cells, trimmed: the label if it is the first counted in
-    /// its cell.
+    registry: Shared,
+    /// Copies of the registry's spellings and weights, as far as batches so far need.
     spellings: Vec<Vec<String>>,
-    /// The distinct weights counted per weight (index 0 is the weight 1).
     weights: Vec<f64>,
     /// Short unexpected answers already counted once, by (measure, packed answer):
     /// the value the tally counts them under, and how many more wait to be added.
@@ -448,9 +482,10 @@ pub(crate) struct Counting {
 }
 
 impl Counting {
-    fn new(layout: &Layout) -> Counting {
+    fn new(layout: &Layout, registry: Shared) -> Counting {
         Counting {
             layout: layout.clone(),
+            registry,
             staged: Vec::new(),
             spellings: Vec::new(),
             weights: vec![1.0],
@@ -464,16 +499,24 @@ impl Counting {
     /// each other and with the counting instead of waiting one after another.
     pub(crate) fn count(&mut self, tally: &mut Tally, batch: &mut Batch) {
         let measures = self.layout.measures.len();
-        for key in batch.new_cells.drain(..) {
-            self.staged.push(Staged {
-                key,
-                cell: CellTally::new(Vec::new(), measures),
-                counts: vec![Vec::new(); measures],
-                run: None,
-            });
+        {
+            // Every number in the batch was registered before the batch was sent.
+            let registry = lock(&self.registry);
+            for key in registry.cells.iter().skip(self.staged.len()) {
+                self.staged.push(Staged {
+                    key: key.clone(),
+                    cell: CellTally::new(Vec::new(), measures),
+                    counts: vec![Vec::new(); measures],
+                    run: None,
+                });
+            }
+            let known = self.spellings.len();
+            self.spellings
+                .extend(registry.spellings.iter().skip(known).cloned());
+            let known = self.weights.len();
+            self.weights
+                .extend(registry.weights.iter().skip(known).copied());
         }
-        self.spellings.append(&mut batch.new_spellings);
-        self.weights.append(&mut batch.new_weights);
         let (mut answers, mut unexpected) = (0, 0);
         let (mut records, mut own) = (batch.records.iter(), batch.own_spellings.iter_mut());
         let mut runs = batch.entries.chunks(AHEAD).peekable();
@@ -700,44 +743,36 @@ fn unpack(word: u128) -> Vec<u8> {
 }
 
 /// The weights read so far, by their trimmed text (a weight is a pure function of its
-/// text, so remembering it changes nothing), each distinct value with an index for
-/// the counts per weight. Index 0 is the weight 1 (every response without a weight
-/// column).
-#[derive(Debug)]
+/// text, so remembering it changes nothing), each with its index among the
+/// registry's distinct weights for the counts per weight. Index 0 is the weight 1
+/// (every response without a weight column).
+#[derive(Debug, Default)]
 struct Weights {
     by_text: HashMap<u128, (f64, Option<u32>), BuildHasherDefault<Mix>>,
-    by_value: HashMap<u64, u32, BuildHasherDefault<Mix>>,
-}
-
-impl Default for Weights {
-    fn default() -> Weights {
-        Weights {
-            by_text: HashMap::default(),
-            by_value: HashMap::from_iter([(1f64.to_bits(), 0)]),
-        }
-    }
 }
 
 impl Weights {
     /// The weight the text gives and its index (`None` for a weight counted one by
-    /// one), or `None` when it is not a valid weight. A weight given an index here is
-    /// pushed on `new`, so the counting side's list of weights follows this one's.
-    fn get(&mut self, raw: &[u8], new: &mut Vec<f64>) -> Option<(f64, Option<u32>)> {
+    /// one), or `None` when it is not a valid weight. A new distinct weight is given
+    /// its index in the registry.
+    fn get(&mut self, raw: &[u8], registry: &Shared) -> Option<(f64, Option<u32>)> {
         let packed = pack(raw);
         if let Some(&known) = packed.and_then(|p| self.by_text.get(&p)) {
             return Some(known);
         }
         let w = rows::parse_weight(std::str::from_utf8(raw).ok()?).ok()?;
-        let index = match self.by_value.get(&w.to_bits()) {
+        let mut registry = lock(registry);
+        let index = match registry.by_weight.get(&w.to_bits()) {
             Some(&i) => Some(i),
-            None if crate::tally::repeats_exactly(w) && self.by_value.len() < WEIGHT_CACHE => {
-                let i = self.by_value.len() as u32;
-                self.by_value.insert(w.to_bits(), i);
-                new.push(w);
+            None if crate::tally::repeats_exactly(w) && registry.weights.len() < WEIGHT_CACHE => {
+                let i = registry.weights.len() as u32;
+                registry.by_weight.insert(w.to_bits(), i);
+                registry.weights.push(w);
                 Some(i)
             }
             None => None,
         };
+        drop(registry);
         if let Some(p) = packed
             && self.by_text.len() < WEIGHT_CACHE
         {
