@@ -295,14 +295,18 @@ impl Arrivals {
 
     /// The bucket (hour since the Unix epoch, rounded down) that holds `t`.
     pub fn hour_of(t: Timestamp) -> i64 {
+        Self::second_of(t).div_euclid(Self::BUCKET_SECONDS)
+    }
+
+    /// The whole second `t` falls in (the floor, also before 1970).
+    pub(crate) fn second_of(t: Timestamp) -> i64 {
         let second = t.as_second();
         // `as_second` truncates toward zero; step back for a fraction before 1970.
-        let second = if t.subsec_nanosecond() < 0 {
+        if t.subsec_nanosecond() < 0 {
             second - 1
         } else {
             second
-        };
-        second.div_euclid(Self::BUCKET_SECONDS)
+        }
     }
 
     /// Count one arrival.

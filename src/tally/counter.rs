@@ -52,8 +52,9 @@ struct Staged {
     cell: CellTally,
     /// Per measure, per remembered weight: [yes, no] answers not yet in `cell`.
     counts: Vec<Vec<[u64; 2]>>,
-    /// Arrivals in the current hour bucket not yet in `cell.arrivals`.
-    run: Option<(i64, u64)>,
+    /// Arrivals in the current hour bucket not yet in `cell.arrivals`: (hour, count,
+    /// the hour's first second).
+    run: Option<(i64, u64, i64)>,
 }
 
 impl Staged {
@@ -68,7 +69,7 @@ impl Staged {
     }
 
     fn flush_run(&mut self) {
-        if let Some((hour, count)) = self.run.take() {
+        if let Some((hour, count, _)) = self.run.take() {
             *self.cell.arrivals.hours.entry(hour).or_insert(0) += count;
         }
     }
@@ -136,6 +137,8 @@ pub(crate) struct Batch {
     records: Vec<csv::ByteRecord>,
     /// Spellings of cells carried by their records (the cache of spellings is full).
     own_spellings: Vec<Vec<String>>,
+    /// Weights counted one by one, in record order.
+    weights: Vec<f64>,
     /// After counting this batch, give the id set room for a file of this size:
     /// (bytes read, total bytes).
     pub(crate) reserve: Option<(u64, u64)>,
@@ -150,8 +153,9 @@ impl Batch {
     /// A record longer than the limit: rejected, in its place among the others.
     pub(crate) fn push_too_long(&mut self, line: u64, bytes: u64) {
         self.entries.push(Entry {
-            line,
-            what: What::TooLong(bytes),
+            kind: TOO_LONG,
+            second: bytes as i64,
+            ..Entry::at(line)
         });
     }
 
@@ -162,6 +166,7 @@ impl Batch {
         self.unexpected.clear();
         self.records.clear();
         self.own_spellings.clear();
+        self.weights.clear();
         self.reserve = None;
     }
 }
@@ -173,20 +178,74 @@ enum RawAnswer {
     Text(String),
 }
 
+/// One record in a [`Batch`], 48 bytes (it crosses from one core to another, so it
+/// is kept small): what `kind` says, and for a record read in place what counting
+/// it needs, with [`NONE`] for "not there".
 #[derive(Debug, Clone, Copy)]
 struct Entry {
     line: u64,
-    what: What,
+    /// The time's whole second (floor), or a record's size when it is too long.
+    second: i64,
+    cell: u32,
+    /// Its cell's spelling among the registry's, or [`NONE`] for the next of the
+    /// batch's `own_spellings`.
+    spelling: u32,
+    /// Its weight's index among the registry's weights, or [`NONE`] for the next of
+    /// the batch's `weights` (a weight counted one by one).
+    weight_index: u32,
+    /// How many of the batch's `unexpected` answers are this record's.
+    unexpected: u32,
+    /// The id's bytes in the batch's `ids`, or `id_end` [`NONE`] without an id.
+    id_start: u32,
+    id_end: u32,
+    /// The time's nanoseconds within its second, or [`NONE_NANOS`] without a time.
+    nanos: i32,
+    kind: u32,
 }
 
-#[derive(Debug, Clone, Copy)]
-enum What {
-    /// Read in place.
-    Read(InPlace),
-    /// The next of the batch's `records`, counted record by record.
-    Record,
-    /// Longer than the limit (its size in bytes).
-    TooLong(u64),
+/// Kinds of [`Entry`]: read in place; the next of the batch's `records`, counted
+/// record by record; longer than the limit.
+const IN_PLACE: u32 = 0;
+const RECORD: u32 = 1;
+const TOO_LONG: u32 = 2;
+/// "Not there", in an [`Entry`]'s numbers.
+const NONE: u32 = u32::MAX;
+const NONE_NANOS: i32 = i32::MIN;
+
+impl Entry {
+    /// A record on `line` with nothing else known yet.
+    fn at(line: u64) -> Entry {
+        Entry {
+            line,
+            second: 0,
+            cell: 0,
+            spelling: NONE,
+            weight_index: NONE,
+            unexpected: 0,
+            id_start: 0,
+            id_end: NONE,
+            nanos: NONE_NANOS,
+            kind: IN_PLACE,
+        }
+    }
+
+    fn id(&self) -> Option<std::ops::Range<usize>> {
+        (self.kind == IN_PLACE && self.id_end != NONE)
+            .then_some(self.id_start as usize..self.id_end as usize)
+    }
+
+    /// Keep `t` as (floor second, nanoseconds from it), which [`Entry::time`] gives back.
+    fn set_time(&mut self, t: Timestamp) {
+        self.second = Arrivals::second_of(t);
+        self.nanos = t.subsec_nanosecond().rem_euclid(1_000_000_000);
+    }
+
+    fn time(&self) -> Option<Timestamp> {
+        if self.nanos == NONE_NANOS {
+            return None;
+        }
+        Timestamp::new(self.second, self.nanos).ok()
+    }
 }
 
 /// The id hashes of a run of records (read from `ids`, a batch's), each one's slot in
@@ -194,33 +253,13 @@ enum What {
 fn hashes_of(run: &[Entry], ids: &[u8], set: &IdSet) -> [Option<u128>; AHEAD] {
     let mut hashes = [None; AHEAD];
     for (hash, entry) in hashes.iter_mut().zip(run) {
-        if let What::Read(InPlace {
-            id: Some((start, end)),
-            ..
-        }) = entry.what
-        {
-            let h = id_hash(ids.get(start as usize..end as usize).unwrap_or_default());
+        if let Some(id) = entry.id() {
+            let h = id_hash(ids.get(id).unwrap_or_default());
             set.prefetch(h);
             *hash = Some(h);
         }
     }
     hashes
-}
-
-/// A record read in place: what counting it needs.
-#[derive(Debug, Clone, Copy)]
-struct InPlace {
-    cell: u32,
-    /// Its cell's spelling among the spellings sent so far, or `None` for the next of
-    /// the batch's `own_spellings`.
-    spelling: Option<u32>,
-    weight: f64,
-    weight_index: Option<u32>,
-    time: Option<Timestamp>,
-    /// The id's bytes in the batch's `ids` (start, end), when it has one.
-    id: Option<(u32, u32)>,
-    /// How many of the batch's `unexpected` answers are this record's.
-    unexpected: u32,
 }
 
 /// The cells, spellings and weights met so far, numbered in the order they were
@@ -314,16 +353,13 @@ impl Reading {
     /// Read one record (starting on `line`) into the batch: in place when every check
     /// passes, else whole, to be counted record by record.
     pub(crate) fn read(&mut self, fields: Fields<'_>, line: u64, batch: &mut Batch) {
-        match self.read_in_place(fields, batch) {
-            Some(read) => batch.entries.push(Entry {
-                line,
-                what: What::Read(read),
-            }),
+        match self.read_in_place(fields, line, batch) {
+            Some(entry) => batch.entries.push(entry),
             None => {
                 batch.records.push(fields.to_byte_record());
                 batch.entries.push(Entry {
-                    line,
-                    what: What::Record,
+                    kind: RECORD,
+                    ..Entry::at(line)
                 });
             }
         }
@@ -331,7 +367,7 @@ impl Reading {
 
     /// Read a record in place; `None` (with nothing of it in the batch) when it needs
     /// the record-by-record path.
-    fn read_in_place(&mut self, fields: Fields<'_>, batch: &mut Batch) -> Option<InPlace> {
+    fn read_in_place(&mut self, fields: Fields<'_>, line: u64, batch: &mut Batch) -> Option<Entry> {
         if fields.len() != self.layout.width || self.used.len() > MAX_USED {
             return None;
         }
@@ -420,14 +456,23 @@ impl Reading {
                 }
             }
         };
-        let id = match slots.id.map(value).filter(|raw| !raw.is_empty()) {
-            Some(raw) => {
-                let start = batch.ids.len() as u32;
-                batch.ids.extend_from_slice(raw);
-                Some((start, batch.ids.len() as u32))
-            }
-            None => None,
+        let mut entry = Entry {
+            cell,
+            spelling: spelling.unwrap_or(NONE),
+            weight_index: weight_index.unwrap_or(NONE),
+            ..Entry::at(line)
         };
+        if weight_index.is_none() {
+            batch.weights.push(weight);
+        }
+        if let Some(t) = time {
+            entry.set_time(t);
+        }
+        if let Some(raw) = slots.id.map(value).filter(|raw| !raw.is_empty()) {
+            entry.id_start = batch.ids.len() as u32;
+            batch.ids.extend_from_slice(raw);
+            entry.id_end = batch.ids.len() as u32;
+        }
         let mut unexpected = 0;
         for (m, (rule, &slot)) in self.layout.measures.iter().zip(&slots.measures).enumerate() {
             let raw = value(slot);
@@ -455,15 +500,8 @@ impl Reading {
             }
             batch.answers.push(answer);
         }
-        Some(InPlace {
-            cell,
-            spelling,
-            weight,
-            weight_index,
-            time,
-            id,
-            unexpected,
-        })
+        entry.unexpected = unexpected;
+        Some(entry)
     }
 }
 
@@ -519,6 +557,7 @@ impl Counting {
         }
         let (mut answers, mut unexpected) = (0, 0);
         let (mut records, mut own) = (batch.records.iter(), batch.own_spellings.iter_mut());
+        let mut own_weights = batch.weights.iter();
         let mut runs = batch.entries.chunks(AHEAD).peekable();
         let mut next = runs
             .peek()
@@ -527,38 +566,45 @@ impl Counting {
             next = runs
                 .peek()
                 .map(|run| hashes_of(run, &batch.ids, &tally.ids));
-            for (&hash, entry) in hashes.iter().zip(run) {
-                let line = entry.line;
-                let read = match entry.what {
-                    What::Read(read) => read,
-                    What::Record => {
+            for (&hash, read) in hashes.iter().zip(run) {
+                let line = read.line;
+                match read.kind {
+                    IN_PLACE => {}
+                    RECORD => {
                         if let Some(record) = records.next() {
                             tally.add_record(&self.layout, record, line);
                         }
                         continue;
                     }
-                    What::TooLong(bytes) => {
+                    _ => {
+                        let bytes = read.second as u64;
                         tally.reject(Rejection {
                             line,
                             reason: rows::Reason::TooLong { bytes },
                         });
                         continue;
                     }
-                };
+                }
                 let mine = answers..answers + measures;
                 answers += measures;
                 let theirs = unexpected..unexpected + read.unexpected as usize;
                 unexpected += read.unexpected as usize;
                 let own_spelling = match read.spelling {
-                    Some(_) => None,
-                    None => own.next(),
+                    NONE => own.next(),
+                    _ => None,
+                };
+                let (weight, weight_index) = match read.weight_index {
+                    NONE => (own_weights.next().copied().unwrap_or(1.0), None),
+                    i => (
+                        self.weights.get(i as usize).copied().unwrap_or(1.0),
+                        Some(i),
+                    ),
                 };
                 tally.rows_read += 1;
                 if let Some(hash) = hash
                     && !tally.ids.insert_hash(hash)
                 {
-                    let (start, end) = read.id.unwrap_or_default();
-                    let id = batch.ids.get(start as usize..end as usize);
+                    let id = read.id().and_then(|id| batch.ids.get(id));
                     tally.note_duplicate(line, id.unwrap_or_default());
                     continue;
                 }
@@ -570,18 +616,16 @@ impl Counting {
                     staged.cell.label = match tally.cells.get(&staged.key) {
                         Some(known) => known.label.clone(),
                         None => match (read.spelling, own_spelling) {
-                            (Some(i), _) => {
-                                self.spellings.get(i as usize).cloned().unwrap_or_default()
-                            }
-                            (None, Some(own)) => std::mem::take(own),
-                            (None, None) => Vec::new(),
+                            (NONE, Some(own)) => std::mem::take(own),
+                            (NONE, None) => Vec::new(),
+                            (i, _) => self.spellings.get(i as usize).cloned().unwrap_or_default(),
                         },
                     };
                 }
                 staged.cell.responses += 1;
                 let answers = batch.answers.get(mine).unwrap_or_default();
                 for (m, &answer) in answers.iter().enumerate() {
-                    let counted = match (answer, read.weight_index) {
+                    let counted = match (answer, weight_index) {
                         (Answer::Yes | Answer::No, Some(i)) => {
                             let i = i as usize;
                             staged.counts.get_mut(m).is_some_and(|counts| {
@@ -595,7 +639,7 @@ impl Counting {
                         _ => false,
                     };
                     if !counted && let Some(measure) = staged.cell.measures.get_mut(m) {
-                        measure.add_unrounded(answer, read.weight);
+                        measure.add_unrounded(answer, weight);
                     }
                 }
                 for (m, raw) in batch.unexpected.get(theirs).unwrap_or_default() {
@@ -615,15 +659,22 @@ impl Counting {
                         }
                     }
                 }
-                match read.time {
+                match read.time() {
                     None => staged.cell.arrivals.untimed += 1,
                     Some(t) => {
-                        let hour = Arrivals::hour_of(t);
                         match &mut staged.run {
-                            Some((h, count)) if *h == hour => *count += 1,
+                            // The same hour as the run's (without dividing).
+                            Some((_, count, start))
+                                if (*start..*start + Arrivals::BUCKET_SECONDS)
+                                    .contains(&read.second) =>
+                            {
+                                *count += 1
+                            }
                             _ => {
                                 staged.flush_run();
-                                staged.run = Some((hour, 1));
+                                let hour = Arrivals::hour_of(t);
+                                let start = hour * Arrivals::BUCKET_SECONDS;
+                                staged.run = Some((hour, 1, start));
                             }
                         }
                         let arrivals = &mut staged.cell.arrivals;
@@ -953,6 +1004,30 @@ mod tests {
         }
         assert_ne!(pack(b""), pack(b"\0"));
         assert_ne!(pack(b"a"), pack(b"a\0"));
+    }
+
+    /// A time kept in an entry as (floor second, nanoseconds) comes back the same,
+    /// before 1970 and after, with and without a fraction.
+    #[test]
+    fn times_in_entries_come_back_the_same() {
+        let mut rng = ChaCha8Rng::seed_from_u64(3);
+        let mut times: Vec<Timestamp> = ["1969-12-31T23:59:59.5Z", "1970-01-01T00:00:00Z"]
+            .iter()
+            .map(|t| t.parse().unwrap())
+            .collect();
+        for _ in 0..2000 {
+            let second = rng.random_range(-377_705_116_800i64..=253_402_207_999);
+            let nanos = rng.random_range(-999_999_999..=999_999_999);
+            if let Ok(t) = Timestamp::new(second, nanos) {
+                times.push(t);
+            }
+        }
+        for t in times {
+            let mut entry = Entry::at(2);
+            entry.set_time(t);
+            assert_eq!(entry.time(), Some(t), "{t}");
+        }
+        assert_eq!(Entry::at(2).time(), None);
     }
 
     #[test]

@@ -29,7 +29,7 @@ const PIPE_BATCH: usize = 2048;
 /// Batches (or promises of one) that may wait for the counting thread.
 const QUEUED: usize = 4;
 /// Copies of records that go round between the calling thread and the helper.
-const RAW_BATCHES: usize = 2;
+const RAW_BATCHES: usize = 4;
 
 /// Tally the whole input (see [`super::tally_csv_sized`]).
 pub(super) fn tally<R: Read, E>(
@@ -42,42 +42,49 @@ pub(super) fn tally<R: Read, E>(
         let (to_counting, slots) = mpsc::sync_channel::<Slot>(QUEUED);
         let (to_reading, spare) = mpsc::channel::<Batch>();
         let (start, started) = mpsc::sync_channel::<(Counting, Tally)>(1);
-        let counting = scope.spawn(move || {
-            let (mut counting, mut tally) = started.recv().ok()?;
-            for slot in slots {
-                let mut batch = match slot {
-                    Slot::Ready(batch) => batch,
-                    Slot::Pending(promise) => promise.recv().ok()?,
-                };
-                counting.count(&mut tally, &mut batch);
-                // The calling thread may have finished; then the batch is dropped.
-                let _ = to_reading.send(batch);
-            }
-            counting.flush(&mut tally);
-            Some(tally)
-        });
+        let spawn_failed =
+            |e: std::io::Error| TallyError::Io(format!("cannot start a thread: {e}"));
+        let thread = |name: &str| std::thread::Builder::new().name(format!("closeout {name}"));
+        let counting = thread("counting")
+            .spawn_scoped(scope, move || {
+                let (mut counting, mut tally) = started.recv().ok()?;
+                for slot in slots {
+                    let mut batch = match slot {
+                        Slot::Ready(batch) => batch,
+                        Slot::Pending(promise) => promise.recv().ok()?,
+                    };
+                    counting.count(&mut tally, &mut batch);
+                    // The calling thread may have finished; then the batch is dropped.
+                    let _ = to_reading.send(batch);
+                }
+                counting.flush(&mut tally);
+                Some(tally)
+            })
+            .map_err(spawn_failed)?;
         let (to_helper, work) = mpsc::channel::<Work>();
         let (raw_back, spare_raw) = mpsc::channel::<RawBatch>();
         for _ in 0..RAW_BATCHES {
             let _ = raw_back.send(RawBatch::default());
         }
-        scope.spawn(move || {
-            let mut reading = None;
-            for work in work {
-                match work {
-                    Work::Start(mine) => reading = Some(mine),
-                    Work::Read(mut raw, mut batch, promise) => {
-                        if let Some(reading) = reading.as_mut() {
-                            raw.read_into(reading, &mut batch);
+        thread("reading")
+            .spawn_scoped(scope, move || {
+                let mut reading = None;
+                for work in work {
+                    match work {
+                        Work::Start(mine) => reading = Some(mine),
+                        Work::Read(mut raw, mut batch, promise) => {
+                            if let Some(reading) = reading.as_mut() {
+                                raw.read_into(reading, &mut batch);
+                            }
+                            // The counting thread may have stopped; then it is dropped.
+                            let _ = promise.send(batch);
+                            raw.clear();
+                            let _ = raw_back.send(raw);
                         }
-                        // The counting thread may have stopped; then it is dropped.
-                        let _ = promise.send(batch);
-                        raw.clear();
-                        let _ = raw_back.send(raw);
                     }
                 }
-            }
-        });
+            })
+            .map_err(spawn_failed)?;
         let mut sink = Sink {
             layout_for: Some(layout_for),
             state: None,
