@@ -308,3 +308,59 @@ impl fmt::Debug for IdSet {
 pub(super) fn id_hash(id: &[u8]) -> u128 {
     xxhash_rust::xxh3::xxh3_128(id)
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// A shard large enough to live in its own map (for huge pages) holds and finds
+    /// exactly what a vector-backed one does, through growth and cloning.
+    #[test]
+    fn mapped_slots_hold_what_vector_slots_hold() {
+        let mapped = Slots::zeroed(MAPPED_SLOTS);
+        assert!(matches!(mapped, Slots::Mapped(..)));
+        let mut big = Shard {
+            slots: mapped,
+            len: 0,
+        };
+        let mut small = Shard::default();
+        let mut state = 0x9e37_79b9_7f4a_7c15u64;
+        let mut next = || {
+            // SplitMix64, seeded: two words make a nonzero 128-bit "hash".
+            let mut word = || {
+                state = state.wrapping_add(0x9e37_79b9_7f4a_7c15);
+                let mut z = state;
+                z = (z ^ (z >> 30)).wrapping_mul(0xbf58_476d_1ce4_e5b9);
+                z = (z ^ (z >> 27)).wrapping_mul(0x94d0_49bb_1331_11eb);
+                z ^ (z >> 31)
+            };
+            (u128::from(word()) << 64 | u128::from(word())) | 1
+        };
+        let hashes: Vec<u128> = (0..MAPPED_SLOTS).map(|_| next()).collect();
+        for &h in &hashes {
+            big.reserve_one();
+            small.reserve_one();
+            assert_eq!(big.insert(h), small.insert(h));
+        }
+        // Past 4/5 of the first map, the shard grew into a larger map.
+        assert!(big.slots.len() > MAPPED_SLOTS);
+        assert!(matches!(big.slots, Slots::Mapped(..)));
+        assert_eq!(big.len, MAPPED_SLOTS);
+        for &h in hashes.iter().step_by(7) {
+            big.reserve_one();
+            assert!(!big.insert(h), "a repeated hash is not new");
+            assert!(big.contains(h) && small.contains(h));
+        }
+        let copy = big.clone();
+        let others: Vec<u128> = (0..1000).map(|_| next()).collect();
+        for &h in &others {
+            assert_eq!(copy.contains(h), small.contains(h));
+        }
+        let mut held: Vec<u128> = copy.slots.hashes().collect();
+        let mut want = hashes.clone();
+        held.sort_unstable();
+        want.sort_unstable();
+        want.dedup();
+        assert_eq!(held, want);
+    }
+}
