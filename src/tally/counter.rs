@@ -1,22 +1,25 @@
 //! The fast way to count many records: [`Counter`] gives exactly what
 //! [`Tally::add_record`] gives record by record, without the per-record allocations.
+//! It has two halves joined by a [`Batch`], which `tally::pipe` runs on separate
+//! threads for a one-shot read:
 //!
-//! - A record whose every check passes is read in place: the cell is found from its
-//!   raw values through a small cache (raw bytes → cell), answers are classified
-//!   through a cache per measure (raw answer → yes / no / missing / unexpected), times
-//!   in the usual `YYYY-MM-DDTHH:MM:SS[.f…]Z` form are computed from a cached start of their
-//!   hour, and the id is hashed. Records then wait in batches of [`BATCH`]: the id
-//!   set's slot of each waiting id is loaded first (so the memory fetches overlap),
-//!   then the records are counted in file order. A cell's sums go to a staging copy of
-//!   the cell (counts per measure and weight), merged into the tally by
+//! - [`Reading`]: a record whose every check passes is read in place: the cell is
+//!   found from its raw values through a small cache (raw bytes → cell), answers are
+//!   classified through a cache per measure (raw answer → yes / no / missing /
+//!   unexpected), times in the usual `YYYY-MM-DDTHH:MM:SS[.f…]Z` form are computed
+//!   from a cached start of their hour, and the id's bytes are kept. Anything else —
+//!   a wrong field count, text that is not UTF-8, a bad weight or time — is kept
+//!   whole, to go through [`Tally::add_record`] itself, so every rejection is the
+//!   one the record-by-record path gives. Cells, spellings and weights are numbered
+//!   in a [`Registry`] shared with the other halves of the same count.
+//! - [`Counting`]: the batch's records are counted in file order, in runs of
+//!   [`AHEAD`]: the ids of the next run are hashed and their slots in the id set
+//!   prefetched while this run is counted. A cell's sums go to a staging copy of the
+//!   cell (counts per measure and weight), merged into the tally by
 //!   [`Counter::flush`] (exact sums, so the grouping does not change a bit).
-//! - Anything else — a wrong field count, text that is not UTF-8, a bad weight or time
-//!   — goes through [`Tally::add_record`] itself, so every rejection is the one the
-//!   record-by-record path gives.
 //!
 //! Duplicates, rejections, unexpected values and the newest time go to the tally as
-//! each record is counted, in file order (a record that goes record by record first
-//! lets the waiting ones be counted), so the first-fifty lists and the
+//! each record is counted, in file order, so the first-fifty lists and the
 //! unexpected-value limit come out as in one pass.
 
 use std::collections::HashMap;
@@ -76,7 +79,7 @@ impl Staged {
 }
 
 /// Counts records into a [`Tally`] (see the module notes), on one thread: a
-/// [`Reading`] and a [`Counting`] joined by a [`Batch`]. Call [`Counter::flush`]
+/// `Reading` and a `Counting` joined by a `Batch`. Call [`Counter::flush`]
 /// before reading the tally: until then the sums of the cells are held here.
 #[derive(Debug)]
 pub struct Counter {
@@ -122,8 +125,9 @@ impl Counter {
     }
 }
 
-/// Records read, in file order, on their way from a [`Reading`] to a [`Counting`].
-/// Everything the counting side needs travels in it, so the two sides share nothing.
+/// Records read, in file order, on their way from a [`Reading`] to a [`Counting`]:
+/// everything the counting side needs, besides the numbers of the shared
+/// [`Registry`].
 #[derive(Debug, Default)]
 pub(crate) struct Batch {
     entries: Vec<Entry>,
