@@ -12,10 +12,12 @@
 //! p. Each integral is the point probability at p times `∫₀¹ exp ψ(w) dw`, where
 //! `ψ(w) = t ln(1 − wh/p) + (n − 1 − t) ln(1 + wh/q)` is a power series in w whose
 //! coefficients shrink like `(1/np)^i` ([`series`]), and `exp ψ(1)` steps the point
-//! probability to the next pivot. So each pivot costs a fixed few hundred flops
-//! instead of two tail sums. Point probabilities are recomputed exactly every 64
-//! pivots; the tails carry an error that is tracked and handed to the caller, who
-//! decides any value that close to δ the slow, exact way.
+//! probability to the next pivot. These factors change slowly from pivot to pivot, so
+//! over a block of pivots they come from a Chebyshev fit through a dozen exact ones
+//! ([`Fit`]): each pivot then costs about a hundred flops instead of two tail sums.
+//! Point probabilities are recomputed exactly after each block; the tails carry an
+//! error that is tracked and handed to the caller, who decides any value that close
+//! to δ the slow, exact way.
 //!
 //! Which pivots: the sweep starts at the pivot nearest p = ½ and walks outward on each
 //! side until a bound proves that every pivot further out is below the limit. The
@@ -34,11 +36,119 @@
 use super::super::concentration::kl;
 use super::super::special::{ln_binom_lower, ln_binom_pmf, ln_binom_upper};
 
-/// Pivots whose stepping factors are computed together.
+/// Pivots stepped with their own factors at a time, where no fit is used.
 const BATCH: usize = 8;
 
-/// Pivots between exact recomputations of the point probabilities.
-const ANCHOR_EVERY: u32 = 64;
+/// The most and the fewest pivots a Chebyshev fit of the factors covers; the point
+/// probabilities are computed exactly again after each block.
+const BLOCK_MAX: usize = 256;
+const BLOCK_MIN: usize = 24;
+
+/// Points a fit goes through.
+const NODES: usize = 12;
+
+/// The stepping factors at one pivot (see [`Side::factors`]).
+type Factors = [f64; 5];
+
+/// A polynomial fit of the factors over pivot positions `[lo, hi]`: the Chebyshev
+/// interpolant through [`NODES`] points, held as a polynomial in
+/// `x = (2f − lo − hi)/(hi − lo) ∈ [−1, 1]` (its coefficients fall about as fast as
+/// the Chebyshev ones here, so Horner's rule loses nothing).
+struct Fit {
+    centre: f64,
+    inv_half: f64,
+    /// `powers[k][f]`: the coefficient of `x^k` for factor f (a sixth lane pads).
+    powers: [[f64; 6]; NODES],
+}
+
+impl Fit {
+    /// The fit through the factors at the Chebyshev points of `[lo, hi]`, if its last
+    /// two Chebyshev coefficients show it good to 1e-15 (relative to 1 or to the
+    /// factor; the factors themselves carry rounding of a few 1e-16).
+    fn through(lo: f64, hi: f64, at: impl Fn(f64) -> Option<Factors>) -> Option<Fit> {
+        let cosines = chebyshev_cosines();
+        let (centre, half) = (0.5 * (lo + hi), 0.5 * (hi - lo));
+        let mut chebyshev = [[0.0; 5]; NODES];
+        for row in cosines {
+            // row[m] = cos(m θⱼ); the node sits at cos θⱼ.
+            let value = at(centre + half * row[1])?;
+            for (c, t) in chebyshev.iter_mut().zip(row) {
+                for (c, v) in c.iter_mut().zip(value) {
+                    *c += v * t;
+                }
+            }
+        }
+        let scale = 2.0 / NODES as f64;
+        for (m, c) in chebyshev.iter_mut().enumerate() {
+            let factor = if m == 0 { 0.5 * scale } else { scale };
+            c.iter_mut().for_each(|c| *c *= factor);
+        }
+        let good = (0..5).all(|f| {
+            let tail = chebyshev[NODES - 1][f].abs() + chebyshev[NODES - 2][f].abs();
+            tail <= 1e-15 * chebyshev[0][f].abs().max(1.0)
+        });
+        if !good {
+            return None;
+        }
+        // Σ cₘ Tₘ(x) as a polynomial: T₀ = 1, T₁ = x, T_{m+1} = 2x Tₘ − T_{m−1}.
+        let mut powers = [[0.0; 6]; NODES];
+        let (mut older, mut old) = ([0.0; NODES], [0.0; NODES]);
+        older[0] = 1.0;
+        old[1] = 1.0;
+        for (m, c) in chebyshev.iter().enumerate() {
+            let t = match m {
+                0 => older,
+                1 => old,
+                _ => {
+                    let mut t = [0.0; NODES];
+                    for k in 0..NODES {
+                        t[k] = if k > 0 { 2.0 * old[k - 1] } else { 0.0 } - older[k];
+                    }
+                    older = old;
+                    old = t;
+                    t
+                }
+            };
+            for (p, &tk) in powers.iter_mut().zip(&t) {
+                for (p, &cf) in p.iter_mut().zip(c) {
+                    *p += cf * tk;
+                }
+            }
+        }
+        Some(Fit {
+            centre,
+            inv_half: half.recip(),
+            powers,
+        })
+    }
+
+    /// The factors at pivot position f.
+    fn at(&self, f: f64) -> Factors {
+        let x = (f - self.centre) * self.inv_half;
+        let mut sum = [0.0; 6];
+        for p in self.powers.iter().rev() {
+            for (s, &c) in sum.iter_mut().zip(p) {
+                *s = *s * x + c;
+            }
+        }
+        [sum[0], sum[1], sum[2], sum[3], sum[4]]
+    }
+}
+
+/// `cos(m θⱼ)` for the Chebyshev points `θⱼ = π (j + ½) / NODES`.
+fn chebyshev_cosines() -> &'static [[f64; NODES]; NODES] {
+    static TABLE: std::sync::OnceLock<[[f64; NODES]; NODES]> = std::sync::OnceLock::new();
+    TABLE.get_or_init(|| {
+        let mut table = [[0.0; NODES]; NODES];
+        for (j, row) in table.iter_mut().enumerate() {
+            let theta = std::f64::consts::PI * (j as f64 + 0.5) / NODES as f64;
+            for (m, c) in row.iter_mut().enumerate() {
+                *c = (m as f64 * theta).cos();
+            }
+        }
+        table
+    })
+}
 
 /// One side of the pivots in the common form: pivot i has `p = (i + a)/n`, lower tail
 /// `P(X ≤ i)` and upper tail `P(X ≥ i + s)`; outward is decreasing i.
@@ -204,13 +314,54 @@ impl Side {
         (self.nf() - i - self.a) / self.nf()
     }
 
+    /// The stepping factors at pivot position f (a real number, for the fits):
+    /// the tails grow by `point probability × grow` and the point probabilities are
+    /// multiplied by `next`, from pivot f to f − 1; with the ratio of `b(f + 1)` to
+    /// `b(f)`. `None` where the series does not apply.
+    fn factors(&self, f: f64) -> Option<Factors> {
+        let (nf, a, sf) = (self.nf(), self.a, self.s as f64);
+        let (pa, qa) = (f + a, nf - f - a); // np, nq
+        if !(pa > 1.0 && qa > 1.0) {
+            return None;
+        }
+        let (inv_p, inv_q) = (1.0 / pa, 1.0 / qa);
+        let (alpha, beta) = (-inv_p, -inv_q); // −h/p, −h/q
+        let t_low = f - 1.0;
+        let t_up = f + sf - 2.0;
+        let c1 = (t_low * alpha - (nf - 1.0 - t_low) * beta)
+            .abs()
+            .max((t_up * alpha - (nf - 1.0 - t_up) * beta).abs());
+        let [(j_low, e_low), (j_up, e_up)] = series_pair(
+            pa,
+            c1,
+            (t_low, nf - 1.0 - t_low),
+            (t_up, nf - 1.0 - t_up),
+            alpha,
+            beta,
+        )?;
+        let odds = qa * inv_p; // q/p
+        let step = odds * (1.0 + inv_q);
+        let t = f + sf - 1.0;
+        Some([
+            f * inv_p * j_low - 1.0,
+            f / (nf - f + 1.0) * step * e_low,
+            1.0 - t * inv_p * j_up,
+            t / (nf - t + 1.0) * step * e_up,
+            (nf - f) / (f + 1.0) * pa * inv_q,
+        ])
+    }
+
     /// Walk from pivot `start` outward (decreasing i), handing each pivot's values to
     /// `visit` until it returns false or pivot 0 is done. Returns false when the
     /// stepping cannot keep its accuracy (the caller then uses the slow way).
+    ///
+    /// The factors of a block of pivots come from a Chebyshev fit through their exact
+    /// values at [`NODES`] points (they vary on the scale of np pivots, and a block is
+    /// at most np/16 wide); a block whose fit does not check out, or that is short, is
+    /// stepped with each pivot's own factors.
     pub fn walk(&self, start: u64, mut visit: impl FnMut(u64, &Values) -> bool) -> bool {
         let n = self.n;
-        let (nf, a, s) = (self.nf(), self.a, self.s);
-        let sf = s as f64;
+        let (a, s) = (self.a, self.s);
         if start + s > n || a.is_nan() || a <= 0.0 {
             return false;
         }
@@ -228,83 +379,63 @@ impl Side {
         let mut at_pivot = pmf(start, start);
         let mut below_cut = pmf(start + s - 1, start);
         // Each step adds to a tail an error below `drift` × (the largest tail seen):
-        // rounding in the step and the point probabilities' drift since they were last
-        // computed exactly (64 steps; together below 2e-15 a step) and the series'
-        // truncation (below 2 (1/np)⁶); the starting tails are good to a relative 1e-12.
+        // rounding in the step and in the fit's evaluation, and the point
+        // probabilities' drift since they were last computed exactly (at most
+        // BLOCK_MAX steps; together below 5e-15 a step), and the series' truncation
+        // (below 2 (1/np)⁶); the starting tails are good to a relative 1e-12.
         let mut scale = lower + upper + at_pivot + below_cut;
         let mut drift = 0.0;
         let mut i = start;
-        let mut since_anchor = 0;
         loop {
-            let count = (i as usize + 1).min(BATCH);
-            // Stepping factors for pivots i, i − 1, …: tails `+= pmf × grow`, point
-            // probabilities `×= next`, and the ratio to the point probability above.
-            let mut grow_lower = [0.0; BATCH];
-            let mut next_lower = [0.0; BATCH];
-            let mut grow_upper = [0.0; BATCH];
-            let mut next_upper = [0.0; BATCH];
-            let mut up_ratio = [0.0; BATCH];
-            let mut step_error = [0.0; BATCH];
-            for j in 0..count {
-                let f = (i - j as u64) as f64;
-                let (pa, qa) = (f + a, nf - f - a); // np, nq
-                if !(pa > 1.0 && qa > 1.0) {
-                    return false;
-                }
-                let (inv_p, inv_q) = (1.0 / pa, 1.0 / qa);
-                let (alpha, beta) = (-inv_p, -inv_q); // −h/p, −h/q
-                let t_low = f - 1.0;
-                let t_up = f + sf - 2.0;
-                let c1 = (t_low * alpha - (nf - 1.0 - t_low) * beta)
-                    .abs()
-                    .max((t_up * alpha - (nf - 1.0 - t_up) * beta).abs());
-                let Some([(j_low, e_low), (j_up, e_up)]) = series_pair(
-                    pa,
-                    c1,
-                    (t_low, nf - 1.0 - t_low),
-                    (t_up, nf - 1.0 - t_up),
-                    alpha,
-                    beta,
-                ) else {
-                    return false;
-                };
-                let odds = qa * inv_p; // q/p
-                let step = odds * (1.0 + inv_q);
-                grow_lower[j] = f * inv_p * j_low - 1.0;
-                next_lower[j] = f / (nf - f + 1.0) * step * e_low;
-                let t = f + sf - 1.0;
-                grow_upper[j] = 1.0 - t * inv_p * j_up;
-                next_upper[j] = t / (nf - t + 1.0) * step * e_up;
-                up_ratio[j] = (nf - f) / (f + 1.0) * pa * inv_q;
-                step_error[j] = 2e-15 + 2.0 * (inv_p * inv_p * inv_p).powi(2);
-            }
+            let np = i as f64 + a;
+            let width = ((np / 16.0) as usize)
+                .clamp(1, BLOCK_MAX)
+                .min(i as usize + 1);
+            let fit = if width >= BLOCK_MIN {
+                let (hi, lo) = (i as f64, (i + 1 - width as u64) as f64);
+                Fit::through(lo, hi, |f| self.factors(f))
+            } else {
+                None
+            };
+            // Without a fit, each pivot's own factors, a batch at a time.
+            let count = if fit.is_some() {
+                width
+            } else {
+                width.min(BATCH)
+            };
+            let outer = (i + 1 - count as u64) as f64 + a;
+            let step_error = 5e-15 + 2.0 * (outer.recip().powi(3)).powi(2);
             for j in 0..count {
                 let here = i - j as u64;
-                let error = (drift + 1e-12) * scale;
+                let position = here as f64;
+                let factors = match &fit {
+                    Some(fit) => fit.at(position),
+                    None => match self.factors(position) {
+                        Some(f) => f,
+                        None => return false,
+                    },
+                };
+                let [grow_lower, next_lower, grow_upper, next_upper, up_ratio] = factors;
                 let values = Values {
                     lower,
                     upper,
                     below_cut,
-                    above_pivot: at_pivot * up_ratio[j],
-                    error,
+                    above_pivot: at_pivot * up_ratio,
+                    error: (drift + 1e-12) * scale,
                 };
                 if !visit(here, &values) || here == 0 {
                     return true;
                 }
-                lower += at_pivot * grow_lower[j];
-                at_pivot *= next_lower[j];
-                upper += below_cut * grow_upper[j];
-                below_cut *= next_upper[j];
-                drift += step_error[j];
+                lower += at_pivot * grow_lower;
+                at_pivot *= next_lower;
+                upper += below_cut * grow_upper;
+                below_cut *= next_upper;
+                drift += step_error;
                 scale = scale.max(lower + upper + at_pivot + below_cut);
             }
             i -= count as u64;
-            since_anchor += count as u32;
-            if since_anchor >= ANCHOR_EVERY {
-                since_anchor = 0;
-                at_pivot = pmf(i, i);
-                below_cut = pmf(i + s - 1, i);
-            }
+            at_pivot = pmf(i, i);
+            below_cut = pmf(i + s - 1, i);
         }
     }
 
