@@ -2,31 +2,39 @@
 //! sampling with replacement, and its hypergeometric counterpart for a finite
 //! population sampled without replacement.
 
-use super::roots::brent;
-use super::special::{ln_binom_lower, ln_binom_upper, ln_hyper_lower, ln_hyper_upper};
+use super::roots::brent_pair;
+use super::special::{TailRatios, ln_binom_upper_pair, ln_hyper_lower, ln_hyper_upper};
 
 /// Clopper–Pearson: `lower` solves `P(X ≥ S; n, p) = δ/2`, `upper` solves
 /// `P(X ≤ S; n, p) = δ/2`, with the closed forms `(δ/2)^(1/n)` at the ends.
+///
+/// The two ends are found by Brent's method on `ln P − ln(δ/2)`, the two searches
+/// side by side so that their tails are summed together ([`brent_pair`],
+/// [`ln_binom_upper_pair`], with each tail's quotients divided once): each search and
+/// each tail is exactly what it is alone, `P(X ≤ S)` being `P(Y ≥ n − S)` for
+/// `Y = n − X` as [`super::special::ln_binom_lower`] computes it.
 pub fn clopper_pearson(s: u64, n: u64, delta: f64) -> (f64, f64) {
     let cut = (0.5 * delta).ln();
     let nf = n as f64;
-    let lower = if s == 0 {
-        0.0
-    } else if s == n {
-        (cut / nf).exp()
-    } else {
-        let p_hat = s as f64 / nf;
-        brent(|p| ln_binom_upper(s, n, p, 1.0 - p) - cut, 0.0, p_hat)
+    if s == 0 {
+        return (0.0, -(cut / nf).exp_m1());
+    }
+    if s == n {
+        return ((cut / nf).exp(), 1.0);
+    }
+    let p_hat = s as f64 / nf;
+    // P(X ≥ s) at p for the lower end, P(X ≤ s) = P(Y ≥ n − s) at 1 − p for the upper;
+    // each search asks for its tail from the same count at every p.
+    let (mut from_s, mut from_rest) = (TailRatios::new(s, n), TailRatios::new(n - s, n));
+    let tails = |lower: Option<f64>, upper: Option<f64>| {
+        let (a, b) = ln_binom_upper_pair(
+            lower.map(|p| (s, n, p, 1.0 - p)),
+            upper.map(|p| (n - s, n, 1.0 - p, p)),
+            (&mut from_s, &mut from_rest),
+        );
+        (a - cut, b - cut)
     };
-    let upper = if s == n {
-        1.0
-    } else if s == 0 {
-        -(cut / nf).exp_m1()
-    } else {
-        let p_hat = s as f64 / nf;
-        brent(|p| ln_binom_lower(s, n, p, 1.0 - p) - cut, p_hat, 1.0)
-    };
-    (lower, upper)
+    brent_pair(tails, (0.0, p_hat), (p_hat, 1.0))
 }
 
 /// The exact interval for the share of successes in a population of `total` units,
@@ -68,4 +76,61 @@ pub fn first_true(lo: u64, hi: u64, mut pred: impl FnMut(u64) -> bool) -> u64 {
         }
     }
     a
+}
+
+#[cfg(test)]
+mod tests {
+    use super::super::roots::brent;
+    use super::super::special::{ln_binom_lower, ln_binom_upper};
+    use super::*;
+    use rand::{Rng, SeedableRng};
+    use rand_chacha::ChaCha8Rng;
+
+    /// Clopper–Pearson as it was computed before its two searches ran side by side
+    /// (`0dcfe67`): the reference, bit for bit.
+    fn clopper_pearson_as_before(s: u64, n: u64, delta: f64) -> (f64, f64) {
+        let cut = (0.5 * delta).ln();
+        let nf = n as f64;
+        let lower = if s == 0 {
+            0.0
+        } else if s == n {
+            (cut / nf).exp()
+        } else {
+            let p_hat = s as f64 / nf;
+            brent(|p| ln_binom_upper(s, n, p, 1.0 - p) - cut, 0.0, p_hat)
+        };
+        let upper = if s == n {
+            1.0
+        } else if s == 0 {
+            -(cut / nf).exp_m1()
+        } else {
+            let p_hat = s as f64 / nf;
+            brent(|p| ln_binom_lower(s, n, p, 1.0 - p) - cut, p_hat, 1.0)
+        };
+        (lower, upper)
+    }
+
+    /// Seeded counts from 1 to 10⁶ responses, every share of successes from none to
+    /// all, at usual and extreme levels.
+    #[test]
+    fn both_ends_side_by_side_are_as_before() {
+        let mut rng = ChaCha8Rng::seed_from_u64(1934);
+        for _ in 0..600 {
+            let n = (rng.random::<f64>() * 1e6f64.ln()).exp() as u64 + 1;
+            let s = match rng.random_range(0..8) {
+                0 => 0,
+                1 => n,
+                2 => 1.min(n),
+                _ => rng.random_range(0..=n),
+            };
+            let delta = [0.05, 0.01, 0.1, 0.05 / 300.0, 1e-9, 0.5][rng.random_range(0..6)];
+            let (lo, hi) = clopper_pearson(s, n, delta);
+            let (want_lo, want_hi) = clopper_pearson_as_before(s, n, delta);
+            assert_eq!(
+                (lo.to_bits(), hi.to_bits()),
+                (want_lo.to_bits(), want_hi.to_bits()),
+                "S = {s}, n = {n}, δ = {delta}: {lo:e}, {hi:e} against {want_lo:e}, {want_hi:e}"
+            );
+        }
+    }
 }

@@ -4,18 +4,155 @@
 /// A root of `f` in `[a, b]`, given `f(a)` and `f(b)` of opposite signs (either may be
 /// infinite). Converges to within a few ulps of the root.
 pub fn brent(mut f: impl FnMut(f64) -> f64, a: f64, b: f64) -> f64 {
-    let (mut a, mut b) = (a, b);
-    let (mut fa, mut fb) = (f(a), f(b));
-    if fa == 0.0 {
-        return a;
+    let mut search = Brent::new(a, b);
+    while let Some(x) = search.wants() {
+        search.give(f(x));
     }
-    if fb == 0.0 {
-        return b;
+    search.root()
+}
+
+/// Two roots at once, `f1` in `[a1, b1]` and `f2` in `[a2, b2]`: each search is exactly
+/// [`brent`]'s, step for step, but their function values are asked for together,
+/// `both(Some(x1), Some(x2))` (or with `None` once a search has finished, whose value
+/// is then ignored), so an evaluator that computes two values at once can overlap
+/// them.
+pub fn brent_pair(
+    mut both: impl FnMut(Option<f64>, Option<f64>) -> (f64, f64),
+    (a1, b1): (f64, f64),
+    (a2, b2): (f64, f64),
+) -> (f64, f64) {
+    let (mut first, mut second) = (Brent::new(a1, b1), Brent::new(a2, b2));
+    loop {
+        let (x1, x2) = (first.wants(), second.wants());
+        if x1.is_none() && x2.is_none() {
+            return (first.root(), second.root());
+        }
+        let (y1, y2) = both(x1, x2);
+        if x1.is_some() {
+            first.give(y1);
+        }
+        if x2.is_some() {
+            second.give(y2);
+        }
     }
-    let (mut c, mut fc) = (a, fa);
-    let mut d = b - a;
-    let mut e = d;
-    for _ in 0..400 {
+}
+
+/// Where a search stands.
+#[derive(Clone, Copy, Debug)]
+enum Stage {
+    /// Wants f(a).
+    EndA,
+    /// Wants f(b).
+    EndB,
+    /// Wants f at the last point it stepped to.
+    Stepped,
+    Done(f64),
+}
+
+/// Brent's method as a search that says where it wants f next ([`Brent::wants`]) and
+/// is given the value ([`Brent::give`]).
+#[derive(Clone, Copy, Debug)]
+struct Brent {
+    a: f64,
+    b: f64,
+    c: f64,
+    fa: f64,
+    fb: f64,
+    fc: f64,
+    d: f64,
+    e: f64,
+    /// Steps left of the 400 allowed.
+    left: u32,
+    stage: Stage,
+}
+
+impl Brent {
+    fn new(a: f64, b: f64) -> Brent {
+        Brent {
+            a,
+            b,
+            c: a,
+            fa: f64::NAN,
+            fb: f64::NAN,
+            fc: f64::NAN,
+            d: b - a,
+            e: b - a,
+            left: 400,
+            stage: Stage::EndA,
+        }
+    }
+
+    fn root(&self) -> f64 {
+        match self.stage {
+            Stage::Done(x) => x,
+            _ => self.b,
+        }
+    }
+
+    /// The point at which f is wanted next, or `None` when the root is found.
+    fn wants(&mut self) -> Option<f64> {
+        match self.stage {
+            Stage::EndA => Some(self.a),
+            Stage::EndB => Some(self.b),
+            Stage::Done(_) => None,
+            Stage::Stepped => {
+                if self.left == 0 {
+                    self.stage = Stage::Done(self.b);
+                    return None;
+                }
+                match self.step() {
+                    Some(x) => {
+                        self.left -= 1;
+                        Some(x)
+                    }
+                    None => {
+                        self.stage = Stage::Done(self.b);
+                        None
+                    }
+                }
+            }
+        }
+    }
+
+    /// The value of f at the point [`Brent::wants`] gave.
+    fn give(&mut self, fx: f64) {
+        match self.stage {
+            Stage::EndA => {
+                self.fa = fx;
+                self.stage = Stage::EndB;
+            }
+            Stage::EndB => {
+                self.fb = fx;
+                if self.fa == 0.0 {
+                    self.stage = Stage::Done(self.a);
+                } else if self.fb == 0.0 {
+                    self.stage = Stage::Done(self.b);
+                } else {
+                    self.c = self.a;
+                    self.fc = self.fa;
+                    self.d = self.b - self.a;
+                    self.e = self.d;
+                    self.stage = Stage::Stepped;
+                }
+            }
+            Stage::Stepped => self.fb = fx,
+            Stage::Done(_) => {}
+        }
+    }
+
+    /// One step: the next point, or `None` when b is the root.
+    fn step(&mut self) -> Option<f64> {
+        let Brent {
+            mut a,
+            mut b,
+            mut c,
+            mut fa,
+            mut fb,
+            mut fc,
+            mut d,
+            mut e,
+            ..
+        } = *self;
         if (fb > 0.0) == (fc > 0.0) {
             c = a;
             fc = fa;
@@ -32,49 +169,208 @@ pub fn brent(mut f: impl FnMut(f64) -> f64, a: f64, b: f64) -> f64 {
         }
         let tol = 2.0 * f64::EPSILON * b.abs() + f64::MIN_POSITIVE;
         let m = 0.5 * (c - b);
-        if m.abs() <= tol || fb == 0.0 {
-            return b;
-        }
-        let finite = fa.is_finite() && fb.is_finite() && fc.is_finite();
-        if finite && e.abs() >= tol && fa.abs() > fb.abs() {
-            let s = fb / fa;
-            let (mut p, mut q);
-            if a == c {
-                p = 2.0 * m * s;
-                q = 1.0 - s;
-            } else {
-                let qq = fa / fc;
-                let r = fb / fc;
-                p = s * (2.0 * m * qq * (qq - r) - (b - a) * (r - 1.0));
-                q = (qq - 1.0) * (r - 1.0) * (s - 1.0);
-            }
-            if p > 0.0 {
-                q = -q;
-            } else {
-                p = -p;
-            }
-            if 2.0 * p < (3.0 * m * q - (tol * q).abs()).min((e * q).abs()) {
-                e = d;
-                d = p / q;
+        let found = m.abs() <= tol || fb == 0.0;
+        if !found {
+            let finite = fa.is_finite() && fb.is_finite() && fc.is_finite();
+            if finite && e.abs() >= tol && fa.abs() > fb.abs() {
+                let s = fb / fa;
+                let (mut p, mut q);
+                if a == c {
+                    p = 2.0 * m * s;
+                    q = 1.0 - s;
+                } else {
+                    let qq = fa / fc;
+                    let r = fb / fc;
+                    p = s * (2.0 * m * qq * (qq - r) - (b - a) * (r - 1.0));
+                    q = (qq - 1.0) * (r - 1.0) * (s - 1.0);
+                }
+                if p > 0.0 {
+                    q = -q;
+                } else {
+                    p = -p;
+                }
+                if 2.0 * p < (3.0 * m * q - (tol * q).abs()).min((e * q).abs()) {
+                    e = d;
+                    d = p / q;
+                } else {
+                    d = m;
+                    e = m;
+                }
             } else {
                 d = m;
                 e = m;
             }
-        } else {
-            d = m;
-            e = m;
+            a = b;
+            fa = fb;
+            b += if d.abs() > tol { d } else { tol.copysign(m) };
         }
-        a = b;
-        fa = fb;
-        b += if d.abs() > tol { d } else { tol.copysign(m) };
-        fb = f(b);
+        *self = Brent {
+            a,
+            b,
+            c,
+            fa,
+            fb,
+            fc,
+            d,
+            e,
+            ..*self
+        };
+        (!found).then_some(b)
     }
-    b
 }
 
 #[cfg(test)]
 mod tests {
     use super::*;
+    use rand::{Rng, SeedableRng};
+    use rand_chacha::ChaCha8Rng;
+
+    /// Brent's method as this module had it before it became a resumable search
+    /// (`0dcfe67`), the reference the search must follow step for step.
+    fn brent_as_before(mut f: impl FnMut(f64) -> f64, a: f64, b: f64) -> f64 {
+        let (mut a, mut b) = (a, b);
+        let (mut fa, mut fb) = (f(a), f(b));
+        if fa == 0.0 {
+            return a;
+        }
+        if fb == 0.0 {
+            return b;
+        }
+        let (mut c, mut fc) = (a, fa);
+        let mut d = b - a;
+        let mut e = d;
+        for _ in 0..400 {
+            if (fb > 0.0) == (fc > 0.0) {
+                c = a;
+                fc = fa;
+                d = b - a;
+                e = d;
+            }
+            if fc.abs() < fb.abs() {
+                a = b;
+                b = c;
+                c = a;
+                fa = fb;
+                fb = fc;
+                fc = fa;
+            }
+            let tol = 2.0 * f64::EPSILON * b.abs() + f64::MIN_POSITIVE;
+            let m = 0.5 * (c - b);
+            if m.abs() <= tol || fb == 0.0 {
+                return b;
+            }
+            let finite = fa.is_finite() && fb.is_finite() && fc.is_finite();
+            if finite && e.abs() >= tol && fa.abs() > fb.abs() {
+                let s = fb / fa;
+                let (mut p, mut q);
+                if a == c {
+                    p = 2.0 * m * s;
+                    q = 1.0 - s;
+                } else {
+                    let qq = fa / fc;
+                    let r = fb / fc;
+                    p = s * (2.0 * m * qq * (qq - r) - (b - a) * (r - 1.0));
+                    q = (qq - 1.0) * (r - 1.0) * (s - 1.0);
+                }
+                if p > 0.0 {
+                    q = -q;
+                } else {
+                    p = -p;
+                }
+                if 2.0 * p < (3.0 * m * q - (tol * q).abs()).min((e * q).abs()) {
+                    e = d;
+                    d = p / q;
+                } else {
+                    d = m;
+                    e = m;
+                }
+            } else {
+                d = m;
+                e = m;
+            }
+            a = b;
+            fa = fb;
+            b += if d.abs() > tol { d } else { tol.copysign(m) };
+            fb = f(b);
+        }
+        b
+    }
+
+    /// A function to solve and its bracket.
+    type Case = (Box<dyn Fn(f64) -> f64>, f64, f64);
+
+    /// Functions of the shapes the bounds solve: a log-tail-like curve with an
+    /// infinite end, a smooth one, a steep one; with random parameters (seeded).
+    fn cases() -> Vec<Case> {
+        let mut rng = ChaCha8Rng::seed_from_u64(41);
+        let mut out: Vec<Case> = Vec::new();
+        for _ in 0..200 {
+            let root: f64 = rng.random_range(1e-6..0.999);
+            let k: f64 = rng.random_range(0.5..400.0);
+            let shape = rng.random_range(0..3);
+            let f: Box<dyn Fn(f64) -> f64> = match shape {
+                0 => Box::new(move |x: f64| k * (x.ln() - root.ln())),
+                1 => Box::new(move |x: f64| (x - root) * (1.0 + k * x * x)),
+                _ => Box::new(move |x: f64| {
+                    if x >= 1.0 {
+                        f64::NEG_INFINITY
+                    } else {
+                        k * ((1.0 - x).ln() - (1.0 - root).ln())
+                    }
+                }),
+            };
+            out.push((f, 0.0, 1.0));
+        }
+        out
+    }
+
+    #[test]
+    fn the_search_steps_as_before() {
+        for (f, a, b) in cases() {
+            let (mut seen_now, mut seen_before) = (Vec::new(), Vec::new());
+            let now = brent(
+                |x| {
+                    seen_now.push(x);
+                    f(x)
+                },
+                a,
+                b,
+            );
+            let before = brent_as_before(
+                |x| {
+                    seen_before.push(x);
+                    f(x)
+                },
+                a,
+                b,
+            );
+            assert_eq!(now.to_bits(), before.to_bits());
+            assert_eq!(seen_now.len(), seen_before.len());
+            assert!(
+                seen_now
+                    .iter()
+                    .zip(&seen_before)
+                    .all(|(x, y)| x.to_bits() == y.to_bits())
+            );
+        }
+    }
+
+    #[test]
+    fn two_searches_side_by_side_are_each_as_alone() {
+        let cases = cases();
+        for pair in cases.chunks(2) {
+            let [(f1, a1, b1), (f2, a2, b2)] = pair else {
+                continue;
+            };
+            let (r1, r2) = brent_pair(
+                |x, y| (x.map_or(f64::NAN, f1), y.map_or(f64::NAN, f2)),
+                (*a1, *b1),
+                (*a2, *b2),
+            );
+            assert_eq!(r1.to_bits(), brent_as_before(f1, *a1, *b1).to_bits());
+            assert_eq!(r2.to_bits(), brent_as_before(f2, *a2, *b2).to_bits());
+        }
+    }
 
     #[test]
     fn finds_known_roots() {

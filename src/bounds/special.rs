@@ -179,6 +179,259 @@ pub fn ln_binom_lower(k: u64, n: u64, p: f64, q: f64) -> f64 {
     ln_binom_upper(n - k, n, q, p)
 }
 
+/// How [`ln_binom_upper`] gets its value: directly, or from one ratio series (the
+/// upper tail from `k` at `(p, q)`, its complement when `complement`).
+#[derive(Clone, Copy, Debug)]
+enum UpperTail {
+    Known(f64),
+    Series {
+        k: u64,
+        n: u64,
+        p: f64,
+        q: f64,
+        complement: bool,
+    },
+}
+
+/// The steps [`ln_binom_upper`] takes, up to its one ratio series; `None` when it would
+/// take more than one complement (then it is called as it is).
+fn upper_tail(k: u64, n: u64, p: f64, q: f64) -> Option<UpperTail> {
+    let direct = |k: u64, n: u64, p: f64, q: f64| -> Result<UpperTail, ()> {
+        if k == 0 {
+            return Ok(UpperTail::Known(0.0));
+        }
+        if k > n || p <= 0.0 {
+            return Ok(UpperTail::Known(f64::NEG_INFINITY));
+        }
+        if q <= 0.0 {
+            return Ok(UpperTail::Known(0.0));
+        }
+        let (nf, kf) = (n as f64, k as f64);
+        if (nf - kf) * p < (kf + 1.0) * q {
+            Ok(UpperTail::Series {
+                k,
+                n,
+                p,
+                q,
+                complement: false,
+            })
+        } else {
+            Err(())
+        }
+    };
+    match direct(k, n, p, q) {
+        Ok(tail) => Some(tail),
+        // ln_one_minus_exp(ln_binom_lower(k − 1, n, p, q)), the lower tail being
+        // ln_binom_upper(n − k + 1, n, q, p) (k − 1 < n here).
+        Err(()) => match direct(n - k + 1, n, q, p).ok()? {
+            UpperTail::Known(v) => Some(UpperTail::Known(ln_one_minus_exp(v))),
+            UpperTail::Series { k, n, p, q, .. } => Some(UpperTail::Series {
+                k,
+                n,
+                p,
+                q,
+                complement: true,
+            }),
+        },
+    }
+}
+
+/// The quotients `(n − j)/(j + 1)`, j = k, k + 1, …, that [`ln_binom_upper`]'s series
+/// multiplies by the odds p/q: the same for every p, so a search that asks for the
+/// tail from one k at many p divides once ([`ln_binom_upper_pair`]).
+#[derive(Debug, Clone)]
+pub struct TailRatios {
+    k: u64,
+    n: u64,
+    quotients: Vec<f64>,
+}
+
+impl TailRatios {
+    pub fn new(k: u64, n: u64) -> TailRatios {
+        TailRatios {
+            k,
+            n,
+            quotients: Vec::new(),
+        }
+    }
+
+    /// Holds the quotients for i < `end`: `(n − j)/(j + 1)` for j = k + i, as the series
+    /// computes them.
+    fn extend_to(&mut self, end: u64) {
+        let nf = self.n as f64;
+        while (self.quotients.len() as u64) < end {
+            let j = (self.k + self.quotients.len() as u64) as f64;
+            self.quotients.push((nf - j) / (j + 1.0));
+        }
+    }
+}
+
+/// `ln P(X ≥ k)` for two binomials `(k, n, p, q)` at once (either may be absent, its
+/// value then NaN), each exactly as [`ln_binom_upper`] gives it. The two ratio series
+/// are summed in one loop, each term by term in the same order as alone, with the
+/// quotients from `ratios` when a series starts at their k and n: the same products
+/// and sums, without the divisions that bound the plain loop.
+pub fn ln_binom_upper_pair(
+    first: Option<(u64, u64, f64, f64)>,
+    second: Option<(u64, u64, f64, f64)>,
+    ratios: (&mut TailRatios, &mut TailRatios),
+) -> (f64, f64) {
+    let alone = |args: Option<(u64, u64, f64, f64)>| {
+        args.map_or(f64::NAN, |(k, n, p, q)| ln_binom_upper(k, n, p, q))
+    };
+    let plan = |args: Option<(u64, u64, f64, f64)>| match args {
+        Some((k, n, p, q)) => upper_tail(k, n, p, q),
+        None => Some(UpperTail::Known(f64::NAN)),
+    };
+    let (Some(a), Some(b)) = (plan(first), plan(second)) else {
+        return (alone(first), alone(second));
+    };
+    let series_of = |tail: UpperTail| match tail {
+        UpperTail::Known(_) => None,
+        UpperTail::Series { k, n, p, q, .. } => Some((k, n, p / q)),
+    };
+    let (sum_a, sum_b) = ratio_series_pair(series_of(a), series_of(b), ratios);
+    let finish = |tail: UpperTail, sum: f64| match tail {
+        UpperTail::Known(v) => v,
+        UpperTail::Series {
+            k,
+            n,
+            p,
+            q,
+            complement,
+        } => {
+            let v = ln_binom_pmf(k, n, p, q) + sum.ln();
+            if complement { ln_one_minus_exp(v) } else { v }
+        }
+    };
+    (finish(a, sum_a), finish(b, sum_b))
+}
+
+/// [`ratio_series`] for the upper tail from `k` of `n` at odds `p/q`, for two tails
+/// at once (either absent), taking the quotients from `ratios` where they match.
+fn ratio_series_pair(
+    a: Option<(u64, u64, f64)>,
+    b: Option<(u64, u64, f64)>,
+    (ratios_a, ratios_b): (&mut TailRatios, &mut TailRatios),
+) -> (f64, f64) {
+    const CHUNK: u64 = 64;
+    let mut own = (TailRatios::new(0, 0), TailRatios::new(0, 0));
+    fn pick<'r>(
+        s: Option<(u64, u64, f64)>,
+        ratios: &'r mut TailRatios,
+        own: &'r mut TailRatios,
+    ) -> (u64, f64, &'r mut TailRatios) {
+        let Some((k, n, odds)) = s else {
+            return (0, 0.0, own);
+        };
+        let ratios = if ratios.k == k && ratios.n == n {
+            ratios
+        } else {
+            *own = TailRatios::new(k, n);
+            own
+        };
+        (n - k, odds, ratios)
+    }
+    let (count_a, odds_a, qa) = pick(a, ratios_a, &mut own.0);
+    let (count_b, odds_b, qb) = pick(b, ratios_b, &mut own.1);
+    let mut runs = [
+        Run {
+            sum: 1.0,
+            term: 1.0,
+            odds: odds_a,
+            count: count_a,
+            on: count_a > 0,
+        },
+        Run {
+            sum: 1.0,
+            term: 1.0,
+            odds: odds_b,
+            count: count_b,
+            on: count_b > 0,
+        },
+    ];
+    let mut i = 0;
+    while runs[0].on || runs[1].on {
+        // Quotients for the next chunk of terms, divided once.
+        let end = i + CHUNK;
+        if runs[0].on {
+            qa.extend_to(end.min(count_a));
+        }
+        if runs[1].on {
+            qb.extend_to(end.min(count_b));
+        }
+        runs = chunk(runs, &qa.quotients, &qb.quotients, i, end);
+        i = end;
+    }
+    (runs[0].sum, runs[1].sum)
+}
+
+/// One series' state in [`ratio_series_pair`].
+#[derive(Clone, Copy)]
+struct Run {
+    sum: f64,
+    term: f64,
+    odds: f64,
+    count: u64,
+    on: bool,
+}
+
+/// Terms `from..end` of both series (each stops as [`ratio_series`] does).
+#[inline(never)]
+fn chunk(runs: [Run; 2], qa: &[f64], qb: &[f64], from: u64, end: u64) -> [Run; 2] {
+    let [mut a, mut b] = runs;
+    let step = |r: &mut Run, q: f64, i: u64| {
+        r.term *= q * r.odds;
+        let next = r.sum + r.term;
+        if next == r.sum {
+            r.on = false;
+        } else {
+            r.sum = next;
+            r.on = i + 1 < r.count;
+        }
+    };
+    let mut i = from;
+    // Both running and neither at its last term: both steps, no more checks than
+    // whether a sum stopped changing.
+    if a.on && b.on {
+        let stop = end.min(a.count - 1).min(b.count - 1).max(from);
+        let span = (from as usize)..(stop as usize);
+        for (&x, &y) in qa[span.clone()].iter().zip(&qb[span]) {
+            a.term *= x * a.odds;
+            b.term *= y * b.odds;
+            let (next_a, next_b) = (a.sum + a.term, b.sum + b.term);
+            if next_a == a.sum || next_b == b.sum {
+                // Finish this term one series at a time, as below.
+                if next_a == a.sum {
+                    a.on = false;
+                } else {
+                    a.sum = next_a;
+                }
+                if next_b == b.sum {
+                    b.on = false;
+                } else {
+                    b.sum = next_b;
+                }
+                i += 1;
+                break;
+            }
+            a.sum = next_a;
+            b.sum = next_b;
+            i += 1;
+        }
+    }
+    while i < end && (a.on || b.on) {
+        if a.on {
+            step(&mut a, qa[i as usize], i);
+        }
+        if b.on {
+            step(&mut b, qb[i as usize], i);
+        }
+        i += 1;
+    }
+    [a, b]
+}
+
 /// `ln P(X = x)` for the number of successes `X` in a sample of `n` drawn without
 /// replacement from `total` units of which `marked` are successes (Loader's form:
 /// a ratio of three binomial probabilities).
@@ -236,6 +489,50 @@ pub fn ln_falling(x: f64, j: f64) -> f64 {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use rand::{Rng, SeedableRng};
+    use rand_chacha::ChaCha8Rng;
+
+    /// Two tails at once are each bit for bit the tail alone: every branch (direct
+    /// series, complement, the ends), either absent, sizes from 1 to 10⁶ (seeded).
+    #[test]
+    fn two_upper_tails_at_once_are_each_as_alone() {
+        let mut rng = ChaCha8Rng::seed_from_u64(5);
+        let draw = |rng: &mut ChaCha8Rng| {
+            let n = (rng.random::<f64>() * 1e6f64.ln()).exp() as u64 + 1;
+            let k = match rng.random_range(0..6) {
+                0 => 0,
+                1 => n,
+                2 => n + 1,
+                _ => rng.random_range(0..=n),
+            };
+            let p = match rng.random_range(0..8) {
+                0 => 0.0,
+                1 => 1.0,
+                2 => rng.random::<f64>() * 1e-6,
+                3 => 1.0 - rng.random::<f64>() * 1e-6,
+                _ => rng.random::<f64>(),
+            };
+            (k, n, p, 1.0 - p)
+        };
+        let mut kept = TailRatios::new(0, 0);
+        for _ in 0..4000 {
+            let (a, b) = (draw(&mut rng), draw(&mut rng));
+            let want = |(k, n, p, q): (u64, u64, f64, f64)| ln_binom_upper(k, n, p, q);
+            // Quotients kept for the tail at a's k and n (as a search keeps them), for
+            // another k and n, and kept over from earlier draws.
+            let mut ra = TailRatios::new(a.0, a.1);
+            let mut rb = TailRatios::new(b.0 + 1, b.1);
+            let (ga, gb) = ln_binom_upper_pair(Some(a), Some(b), (&mut ra, &mut rb));
+            assert_eq!(ga.to_bits(), want(a).to_bits(), "{a:?}");
+            assert_eq!(gb.to_bits(), want(b).to_bits(), "{b:?}");
+            let (ga, _) = ln_binom_upper_pair(Some(a), None, (&mut ra, &mut rb));
+            assert_eq!(ga.to_bits(), want(a).to_bits(), "{a:?} again");
+            let (ga, gb) = ln_binom_upper_pair(Some(a), None, (&mut kept, &mut rb));
+            assert_eq!(ga.to_bits(), want(a).to_bits(), "{a:?} alone");
+            assert!(gb.is_nan());
+            kept = ra;
+        }
+    }
 
     #[test]
     fn stirling_error_series_matches_mpmath() {
