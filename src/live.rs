@@ -12,7 +12,6 @@
 use csv::ByteRecord;
 
 use crate::follow::{Change, Fields, FollowError, Follower, Out, ResetReason, Warning};
-use crate::rows::{Reason, Rejection};
 use crate::study::Study;
 use crate::tally::{Counter, Tally};
 
@@ -321,14 +320,7 @@ impl Out for State {
             return;
         };
         match too_long {
-            Some(bytes) => {
-                // Records waiting in the counter come first.
-                counter.flush(&mut self.tally);
-                self.tally.reject(Rejection {
-                    line,
-                    reason: Reason::TooLong { bytes },
-                });
-            }
+            Some(bytes) => counter.add_too_long(&mut self.tally, line, bytes),
             None => counter.add(&mut self.tally, fields, line),
         }
         self.counted += 1;

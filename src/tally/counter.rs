@@ -99,14 +99,20 @@ impl Counter {
         }
     }
 
-    /// The layout records are read through.
-    pub fn layout(&self) -> &Layout {
-        &self.reading.layout
-    }
-
     /// Count one record (as [`Tally::add_record`] would) starting on `line`.
     pub fn add(&mut self, tally: &mut Tally, fields: Fields<'_>, line: u64) {
         self.reading.read(fields, line, &mut self.batch);
+        self.count_if_full(tally);
+    }
+
+    /// Reject a record longer than the limit (`bytes` long) starting on `line`, in its
+    /// place among the records counted before and after it.
+    pub fn add_too_long(&mut self, tally: &mut Tally, line: u64, bytes: u64) {
+        self.batch.push_too_long(line, bytes);
+        self.count_if_full(tally);
+    }
+
+    fn count_if_full(&mut self, tally: &mut Tally) {
         if self.batch.len() >= BATCH {
             self.counting.count(tally, &mut self.batch);
         }
