@@ -7,14 +7,14 @@
 //!   found from its raw values through a small cache (raw bytes → cell), answers are
 //!   classified through a cache per measure (raw answer → yes / no / missing /
 //!   unexpected), times in the usual `YYYY-MM-DDTHH:MM:SS[.f…]Z` form are computed
-//!   from a cached start of their hour, and the id's bytes are kept. Anything else —
+//!   from a cached start of their hour, and the id's bytes and hash are kept. Anything else —
 //!   a wrong field count, text that is not UTF-8, a bad weight or time — is kept
 //!   whole, to go through [`Tally::add_record`] itself, so every rejection is the
 //!   one the record-by-record path gives. Cells, spellings and weights are numbered
 //!   in a [`Registry`] shared with the other halves of the same count.
-//! - [`Counting`]: the batch's records are counted in file order, in runs of
-//!   [`AHEAD`]: the ids of the next run are hashed and their slots in the id set
-//!   prefetched while this run is counted. A cell's sums go to a staging copy of the
+//! - [`Counting`]: the batch's records are counted in file order; as each id is
+//!   counted, the slot of the id [`AHEAD`] ids further on is asked for (prefetched)
+//!   in the id set, so the memory fetches overlap with the counting. A cell's sums go to a staging copy of the
 //!   cell (counts per measure and weight), merged into the tally by
 //!   [`Counter::flush`] (exact sums, so the grouping does not change a bit).
 //!
@@ -29,7 +29,7 @@ use std::sync::{Arc, Mutex};
 use jiff::Timestamp;
 
 use super::ids::id_hash;
-use super::{Arrivals, CellKey, CellTally, IdSet, Rejection, Tally, max_option};
+use super::{Arrivals, CellKey, CellTally, Rejection, Tally, max_option};
 use crate::follow::Fields;
 use crate::rows::{self, Answer, Layout};
 
@@ -43,8 +43,8 @@ const WEIGHT_CACHE: usize = 256;
 const BATCH: usize = 256;
 /// Cells of up to this many columns are looked up by their packed values.
 const PACKED_CELLS: usize = 4;
-/// Records whose ids are looked up together (see [`Counting::count`]).
-const AHEAD: usize = 32;
+/// How many ids ahead the id set's slot is prefetched (see [`Counting::count`]).
+const AHEAD: usize = 16;
 /// The most columns a record may be read from in place (more go record by record).
 const MAX_USED: usize = 24;
 
@@ -141,6 +141,8 @@ pub(crate) struct Batch {
     answers: Vec<Answer>,
     /// The ids of the records read in place, back to back.
     ids: Vec<u8>,
+    /// Their hashes ([`id_hash`]), one per record read in place with an id, in order.
+    hashes: Vec<u128>,
     /// Unexpected answers (measure, raw value), in record order.
     unexpected: Vec<(usize, RawAnswer)>,
     /// The records that go record by record, in order.
@@ -173,6 +175,7 @@ impl Batch {
         self.entries.clear();
         self.answers.clear();
         self.ids.clear();
+        self.hashes.clear();
         self.unexpected.clear();
         self.records.clear();
         self.own_spellings.clear();
@@ -256,20 +259,6 @@ impl Entry {
         }
         Timestamp::new(self.second, self.nanos).ok()
     }
-}
-
-/// The id hashes of a run of records (read from `ids`, a batch's), each one's slot in
-/// the id set asked for (prefetched) on the way.
-fn hashes_of(run: &[Entry], ids: &[u8], set: &IdSet) -> [Option<u128>; AHEAD] {
-    let mut hashes = [None; AHEAD];
-    for (hash, entry) in hashes.iter_mut().zip(run) {
-        if let Some(id) = entry.id() {
-            let h = id_hash(ids.get(id).unwrap_or_default());
-            set.prefetch(h);
-            *hash = Some(h);
-        }
-    }
-    hashes
 }
 
 /// The cells, spellings and weights met so far, numbered in the order they were
@@ -482,6 +471,7 @@ impl Reading {
             entry.id_start = batch.ids.len() as u32;
             batch.ids.extend_from_slice(raw);
             entry.id_end = batch.ids.len() as u32;
+            batch.hashes.push(id_hash(raw));
         }
         let mut unexpected = 0;
         for (m, (rule, &slot)) in self.layout.measures.iter().zip(&slots.measures).enumerate() {
@@ -541,10 +531,11 @@ impl Counting {
         }
     }
 
-    /// Count the batch's records in order, and empty it (keeping its room). The
-    /// records go in runs of [`AHEAD`]: the id set's slots for the next run are asked
-    /// for (prefetched) before this run is counted, so the memory fetches overlap with
-    /// each other and with the counting instead of waiting one after another.
+    /// Count the batch's records in order, and empty it (keeping its room). The id
+    /// set's slot for the id [`AHEAD`] ids further on is asked for (prefetched) as each
+    /// id is counted, so the memory fetches overlap with each other and with the
+    /// counting instead of waiting one after another (one prefetch per id rather than a
+    /// burst of them per run of records; see DEVELOPERS.md, "Reading fast").
     pub(crate) fn count(&mut self, tally: &mut Tally, batch: &mut Batch) {
         let measures = self.layout.measures.len();
         {
@@ -568,130 +559,136 @@ impl Counting {
         let (mut answers, mut unexpected) = (0, 0);
         let (mut records, mut own) = (batch.records.iter(), batch.own_spellings.iter_mut());
         let mut own_weights = batch.weights.iter();
-        let mut runs = batch.entries.chunks(AHEAD).peekable();
-        let mut next = runs
-            .peek()
-            .map(|run| hashes_of(run, &batch.ids, &tally.ids));
-        while let (Some(run), Some(hashes)) = (runs.next(), next.take()) {
-            next = runs
-                .peek()
-                .map(|run| hashes_of(run, &batch.ids, &tally.ids));
-            for (&hash, read) in hashes.iter().zip(run) {
-                let line = read.line;
-                match read.kind {
-                    IN_PLACE => {}
-                    RECORD => {
-                        if let Some(record) = records.next() {
-                            tally.add_record(&self.layout, record, line);
-                        }
-                        continue;
+        // The id set's slots for the first ids, then one id further on per id counted.
+        for &hash in batch.hashes.iter().take(AHEAD) {
+            tally.ids.prefetch(hash);
+        }
+        let mut hashes = batch.hashes.iter();
+        let mut ahead = batch.hashes.iter().skip(AHEAD);
+        for read in &batch.entries {
+            let line = read.line;
+            match read.kind {
+                IN_PLACE => {}
+                RECORD => {
+                    if let Some(record) = records.next() {
+                        tally.add_record(&self.layout, record, line);
                     }
-                    _ => {
-                        let bytes = read.second as u64;
-                        tally.reject(Rejection {
-                            line,
-                            reason: rows::Reason::TooLong { bytes },
-                        });
-                        continue;
-                    }
-                }
-                let mine = answers..answers + measures;
-                answers += measures;
-                let theirs = unexpected..unexpected + read.unexpected as usize;
-                unexpected += read.unexpected as usize;
-                let own_spelling = match read.spelling {
-                    NONE => own.next(),
-                    _ => None,
-                };
-                let (weight, weight_index) = match read.weight_index {
-                    NONE => (own_weights.next().copied().unwrap_or(1.0), None),
-                    i => (
-                        self.weights.get(i as usize).copied().unwrap_or(1.0),
-                        Some(i),
-                    ),
-                };
-                tally.rows_read += 1;
-                if let Some(hash) = hash
-                    && !tally.ids.insert_hash(hash)
-                {
-                    let id = read.id().and_then(|id| batch.ids.get(id));
-                    tally.note_duplicate(line, id.unwrap_or_default());
                     continue;
                 }
-                let Some(staged) = self.staged.get_mut(read.cell as usize) else {
-                    continue; // unreachable: new cells arrive before their records
+                _ => {
+                    let bytes = read.second as u64;
+                    tally.reject(Rejection {
+                        line,
+                        reason: rows::Reason::TooLong { bytes },
+                    });
+                    continue;
+                }
+            }
+            let mine = answers..answers + measures;
+            answers += measures;
+            let theirs = unexpected..unexpected + read.unexpected as usize;
+            unexpected += read.unexpected as usize;
+            let own_spelling = match read.spelling {
+                NONE => own.next(),
+                _ => None,
+            };
+            let (weight, weight_index) = match read.weight_index {
+                NONE => (own_weights.next().copied().unwrap_or(1.0), None),
+                i => (
+                    self.weights.get(i as usize).copied().unwrap_or(1.0),
+                    Some(i),
+                ),
+            };
+            tally.rows_read += 1;
+            let hash = match read.id() {
+                Some(_) => hashes.next().copied(),
+                None => None,
+            };
+            if hash.is_some()
+                && let Some(&further) = ahead.next()
+            {
+                tally.ids.prefetch(further);
+            }
+            if let Some(hash) = hash
+                && !tally.ids.insert_hash(hash)
+            {
+                let id = read.id().and_then(|id| batch.ids.get(id));
+                tally.note_duplicate(line, id.unwrap_or_default());
+                continue;
+            }
+            let Some(staged) = self.staged.get_mut(read.cell as usize) else {
+                continue; // unreachable: new cells arrive before their records
+            };
+            if staged.cell.responses == 0 && staged.cell.label.is_empty() {
+                // The cell's first counted response names it (if the tally has not).
+                staged.cell.label = match tally.cells.get(&staged.key) {
+                    Some(known) => known.label.clone(),
+                    None => match (read.spelling, own_spelling) {
+                        (NONE, Some(own)) => std::mem::take(own),
+                        (NONE, None) => Vec::new(),
+                        (i, _) => self.spellings.get(i as usize).cloned().unwrap_or_default(),
+                    },
                 };
-                if staged.cell.responses == 0 && staged.cell.label.is_empty() {
-                    // The cell's first counted response names it (if the tally has not).
-                    staged.cell.label = match tally.cells.get(&staged.key) {
-                        Some(known) => known.label.clone(),
-                        None => match (read.spelling, own_spelling) {
-                            (NONE, Some(own)) => std::mem::take(own),
-                            (NONE, None) => Vec::new(),
-                            (i, _) => self.spellings.get(i as usize).cloned().unwrap_or_default(),
-                        },
-                    };
-                }
-                staged.cell.responses += 1;
-                let answers = batch.answers.get(mine).unwrap_or_default();
-                for (m, &answer) in answers.iter().enumerate() {
-                    let counted = match (answer, weight_index) {
-                        (Answer::Yes | Answer::No, Some(i)) => {
-                            let i = i as usize;
-                            staged.counts.get_mut(m).is_some_and(|counts| {
-                                if counts.len() <= i {
-                                    counts.resize(i + 1, [0, 0]);
-                                }
-                                counts[i][usize::from(answer == Answer::No)] += 1;
-                                true
-                            })
-                        }
-                        _ => false,
-                    };
-                    if !counted && let Some(measure) = staged.cell.measures.get_mut(m) {
-                        measure.add_unrounded(answer, weight);
-                    }
-                }
-                for (m, raw) in batch.unexpected.get(theirs).unwrap_or_default() {
-                    match raw {
-                        RawAnswer::Packed(p) => match self.unexpected.get_mut(&(*m, *p)) {
-                            Some((_, count)) => *count += 1,
-                            None => {
-                                let text = unpack(*p);
-                                let text = std::str::from_utf8(&text).unwrap_or_default();
-                                if let Some(key) = tally.note_unexpected(*m, text) {
-                                    self.unexpected.insert((*m, *p), (key, 0));
-                                }
+            }
+            staged.cell.responses += 1;
+            let answers = batch.answers.get(mine).unwrap_or_default();
+            for (m, &answer) in answers.iter().enumerate() {
+                let counted = match (answer, weight_index) {
+                    (Answer::Yes | Answer::No, Some(i)) => {
+                        let i = i as usize;
+                        staged.counts.get_mut(m).is_some_and(|counts| {
+                            if counts.len() <= i {
+                                counts.resize(i + 1, [0, 0]);
                             }
-                        },
-                        RawAnswer::Text(text) => {
-                            tally.note_unexpected(*m, text);
-                        }
+                            counts[i][usize::from(answer == Answer::No)] += 1;
+                            true
+                        })
                     }
+                    _ => false,
+                };
+                if !counted && let Some(measure) = staged.cell.measures.get_mut(m) {
+                    measure.add_unrounded(answer, weight);
                 }
-                match read.time() {
-                    None => staged.cell.arrivals.untimed += 1,
-                    Some(t) => {
-                        match &mut staged.run {
-                            // The same hour as the run's (without dividing).
-                            Some((_, count, start))
-                                if (*start..*start + Arrivals::BUCKET_SECONDS)
-                                    .contains(&read.second) =>
-                            {
-                                *count += 1
-                            }
-                            _ => {
-                                staged.flush_run();
-                                let hour = Arrivals::hour_of(t);
-                                let start = hour * Arrivals::BUCKET_SECONDS;
-                                staged.run = Some((hour, 1, start));
+            }
+            for (m, raw) in batch.unexpected.get(theirs).unwrap_or_default() {
+                match raw {
+                    RawAnswer::Packed(p) => match self.unexpected.get_mut(&(*m, *p)) {
+                        Some((_, count)) => *count += 1,
+                        None => {
+                            let text = unpack(*p);
+                            let text = std::str::from_utf8(&text).unwrap_or_default();
+                            if let Some(key) = tally.note_unexpected(*m, text) {
+                                self.unexpected.insert((*m, *p), (key, 0));
                             }
                         }
-                        let arrivals = &mut staged.cell.arrivals;
-                        arrivals.first = Some(arrivals.first.map_or(t, |f| f.min(t)));
-                        arrivals.latest = Some(arrivals.latest.map_or(t, |l| l.max(t)));
-                        tally.newest = max_option(tally.newest, Some(t));
+                    },
+                    RawAnswer::Text(text) => {
+                        tally.note_unexpected(*m, text);
                     }
+                }
+            }
+            match read.time() {
+                None => staged.cell.arrivals.untimed += 1,
+                Some(t) => {
+                    match &mut staged.run {
+                        // The same hour as the run's (without dividing).
+                        Some((_, count, start))
+                            if (*start..*start + Arrivals::BUCKET_SECONDS)
+                                .contains(&read.second) =>
+                        {
+                            *count += 1
+                        }
+                        _ => {
+                            staged.flush_run();
+                            let hour = Arrivals::hour_of(t);
+                            let start = hour * Arrivals::BUCKET_SECONDS;
+                            staged.run = Some((hour, 1, start));
+                        }
+                    }
+                    let arrivals = &mut staged.cell.arrivals;
+                    arrivals.first = Some(arrivals.first.map_or(t, |f| f.min(t)));
+                    arrivals.latest = Some(arrivals.latest.map_or(t, |l| l.max(t)));
+                    tally.newest = max_option(tally.newest, Some(t));
                 }
             }
         }
