@@ -23,7 +23,7 @@ use crate::follow::Fields;
 use crate::rows::Layout;
 
 /// How many bytes a batch read asks for at a time.
-const READ_BLOCK: usize = 1 << 20;
+const READ_BLOCK: usize = 64 << 10;
 /// Records sent on at a time.
 const PIPE_BATCH: usize = 2048;
 /// Batches (or promises of one) that may wait for the counting thread.
