@@ -561,35 +561,7 @@ const CELLS_PER_CORE: usize = 4;
 /// [`std::thread::available_parallelism`] threads, dealt out in turn (neighbouring
 /// cells often have similar sizes, and the cost grows with the size).
 fn cell_views(inputs: &[CellInput<'_>], context: &CellContext<'_>) -> Vec<CellView> {
-    let cores = std::thread::available_parallelism().map_or(1, |c| c.get());
-    let workers = cores.min(inputs.len() / CELLS_PER_CORE).max(1);
-    if workers == 1 {
-        return inputs.iter().map(|i| cell_view(i, context)).collect();
-    }
-    let share = |w: usize| {
-        inputs
-            .iter()
-            .skip(w)
-            .step_by(workers)
-            .map(|i| cell_view(i, context))
-            .collect::<Vec<_>>()
-    };
-    let shares: Vec<Vec<CellView>> = std::thread::scope(|scope| {
-        let handles: Vec<_> = (1..workers)
-            .map(|w| scope.spawn(move || share(w)))
-            .collect();
-        let mut shares = vec![share(0)];
-        // A worker can only fail by panicking, which the lints rule out; compute its
-        // share here if it ever does.
-        for (w, handle) in (1..workers).zip(handles) {
-            shares.push(handle.join().unwrap_or_else(|_| share(w)));
-        }
-        shares
-    });
-    let mut shares: Vec<_> = shares.into_iter().map(Vec::into_iter).collect();
-    (0..inputs.len())
-        .filter_map(|i| shares.get_mut(i % workers).and_then(Iterator::next))
-        .collect()
+    crate::parallel::map_dealt(inputs, CELLS_PER_CORE, |input| cell_view(input, context))
 }
 
 /// One cell's view.

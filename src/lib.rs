@@ -26,6 +26,7 @@ pub mod follow;
 pub mod headless;
 pub mod hints;
 pub mod live;
+mod parallel;
 pub mod report;
 pub mod rows;
 pub mod study;

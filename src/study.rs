@@ -1169,24 +1169,33 @@ impl Doc<'_> {
                 format!("target.margin: {e}"),
             )
         })?;
-        let mut sizes: HashMap<Option<u64>, u64> = HashMap::new();
-        let mut size = |population: Option<u64>, line: Option<usize>| -> Result<u64, StudyError> {
-            if let Some(n) = sizes.get(&population) {
-                return Ok(*n);
+        // Each distinct population's size once; they are independent searches of
+        // a tenth of a second or so each, so they run side by side (the answers do not
+        // depend on which thread finds them), and the first problem in file order is
+        // the one reported, as if they had run one after another.
+        let mut populations: Vec<Option<u64>> = vec![None];
+        for q in &study.quotas {
+            if !populations.contains(&q.population) {
+                populations.push(q.population);
             }
+        }
+        let found = crate::parallel::map_dealt(&populations, 1, |&population| {
             let q = match population {
                 Some(p) => query.with_population(p),
                 None => Ok(query),
             };
-            let found = q.map_err(|e| e.to_string()).and_then(|q| {
-                bounds::required_size(Method::Anytime, &q).map_err(|u| u.reason.to_string())
-            });
-            match found {
-                Ok(r) => {
-                    sizes.insert(population, r.n);
-                    Ok(r.n)
-                }
-                Err(reason) => {
+            q.map_err(|e| e.to_string()).and_then(|q| {
+                bounds::required_size(Method::Anytime, &q)
+                    .map(|r| r.n)
+                    .map_err(|u| u.reason.to_string())
+            })
+        });
+        let sizes: HashMap<Option<u64>, Result<u64, String>> =
+            populations.iter().copied().zip(found).collect();
+        let size = |population: Option<u64>, line: Option<usize>| -> Result<u64, StudyError> {
+            match sizes.get(&population) {
+                Some(Ok(n)) => Ok(*n),
+                Some(Err(reason)) => {
                     let line_note = line
                         .map(|l| format!(" (for the quota on line {l})"))
                         .unwrap_or_default();
@@ -1200,6 +1209,13 @@ impl Doc<'_> {
                         ),
                     ))
                 }
+                // Unreachable: every population was searched above.
+                None => Err(self.error(
+                    StudyErrorKind::Invalid,
+                    margin_span.as_ref(),
+                    Some("target.margin".into()),
+                    "target.margin: the anytime sequence's size was not found".into(),
+                )),
             }
         };
         study.tune_unplanned = size(None, None)?;
