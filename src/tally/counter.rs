@@ -371,19 +371,32 @@ impl Reading {
             return None;
         }
         // Every column the layout reads, checked as UTF-8 (in column order, as the
-        // record-by-record path does) and trimmed as `str::trim` trims.
-        let mut values: [&[u8]; MAX_USED] = [&[]; MAX_USED];
-        let ascii = fields.known_ascii();
-        for (value, &column) in values.iter_mut().zip(&self.used) {
-            let bytes = fields.get(column)?;
-            *value = if ascii || bytes.is_ascii() {
-                trim_ascii(bytes)
-            } else {
-                std::str::from_utf8(bytes).ok()?.trim().as_bytes()
-            };
-        }
+        // record-by-record path does) and trimmed as `str::trim` trims. A record known
+        // to be ASCII needs no check: its values are trimmed as they are asked for.
+        let checked = match fields.known_ascii() {
+            true => None,
+            false => {
+                let mut values: [&[u8]; MAX_USED] = [&[]; MAX_USED];
+                for (value, &column) in values.iter_mut().zip(&self.used) {
+                    let bytes = fields.get(column)?;
+                    *value = if bytes.is_ascii() {
+                        trim_ascii(bytes)
+                    } else {
+                        std::str::from_utf8(bytes).ok()?.trim().as_bytes()
+                    };
+                }
+                Some(values)
+            }
+        };
+        let used = &self.used;
+        let value = |slot: usize| match &checked {
+            Some(values) => values.get(slot).copied().unwrap_or_default(),
+            None => used
+                .get(slot)
+                .and_then(|&column| fields.get(column))
+                .map_or(&[][..], trim_ascii),
+        };
         let slots = &self.slots;
-        let value = |slot: usize| values.get(slot).copied().unwrap_or_default();
         let (weight, weight_index) = match slots.weight {
             None => (1.0, Some(0)),
             Some(slot) => self.weights.get(value(slot), &self.registry)?,
