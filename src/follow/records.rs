@@ -211,6 +211,19 @@ impl Reader {
         }
         while !data.is_empty() {
             if !self.in_record {
+                // The usual case, one LF before the next record, without the loop below.
+                if self.nul_run.is_none()
+                    && let [b'\n', next, ..] = data
+                    && !matches!(next, b'\r' | b'\n' | 0)
+                {
+                    self.line += 1;
+                    self.taken += 1;
+                    data = &data[1..];
+                    if let Some(len) = self.split_in_place(data, out, warnings) {
+                        data = &data[len..];
+                        continue;
+                    }
+                }
                 let skip = data
                     .iter()
                     .take_while(|&&b| matches!(b, b'\r' | b'\n' | 0))
