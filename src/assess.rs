@@ -213,7 +213,13 @@ fn measure_view(name: &str, tally: &MeasureTally, d: &Decision, detail: Detail) 
                     .filter(|i| i.method == decide_by)
                     .map(|i| i.margin)
             });
-            let needed = bounds::more_needed(decide_by, &q, target).ok().flatten();
+            // A measure within the target needs none more (`Some(0)` below): the
+            // search would only find its own n again.
+            let needed = if margin.is_some_and(|m| m <= target) {
+                None
+            } else {
+                bounds::more_needed(decide_by, &q, target).ok().flatten()
+            };
             let eff = q.weights().map(|w| w.effective_n());
             (
                 rows.iter().map(BoundRow::from).collect(),
