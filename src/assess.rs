@@ -564,37 +564,46 @@ const CELLS_PER_CORE: usize = 4;
 /// The view of every cell, in the order of `inputs`. Each cell is independent of the
 /// others (the margin engine's memo is shared and gives the same numbers whichever
 /// thread fills it), so they are computed on up to
-/// [`std::thread::available_parallelism`] threads, dealt out in turn (neighbouring
-/// cells often have similar sizes, and the cost grows with the size).
+/// [`std::thread::available_parallelism`] threads. Each thread takes the next cell
+/// not yet taken, the cells with the most responses first (the cost grows with the
+/// size), so the threads end within about one small cell of each other whatever the
+/// mix of cells, and a thread whose core is busy with other work takes fewer.
 fn cell_views(inputs: &[CellInput<'_>], context: &CellContext<'_>) -> Vec<CellView> {
     let cores = std::thread::available_parallelism().map_or(1, |c| c.get());
     let workers = cores.min(inputs.len() / CELLS_PER_CORE).max(1);
     if workers == 1 {
         return inputs.iter().map(|i| cell_view(i, context)).collect();
     }
-    let share = |w: usize| {
-        inputs
-            .iter()
-            .skip(w)
-            .step_by(workers)
-            .map(|i| cell_view(i, context))
-            .collect::<Vec<_>>()
-    };
-    let shares: Vec<Vec<CellView>> = std::thread::scope(|scope| {
-        let handles: Vec<_> = (1..workers)
-            .map(|w| scope.spawn(move || share(w)))
-            .collect();
-        let mut shares = vec![share(0)];
-        // A worker can only fail by panicking, which the lints rule out; compute its
-        // share here if it ever does.
-        for (w, handle) in (1..workers).zip(handles) {
-            shares.push(handle.join().unwrap_or_else(|_| share(w)));
+    let mut order: Vec<(usize, &CellInput<'_>)> = inputs.iter().enumerate().collect();
+    order.sort_by_key(|(_, input)| std::cmp::Reverse(input.tally.map_or(0, |t| t.responses)));
+    let next = std::sync::atomic::AtomicUsize::new(0);
+    let work = || {
+        let mut done = Vec::new();
+        while let Some(&(i, input)) =
+            order.get(next.fetch_add(1, std::sync::atomic::Ordering::Relaxed))
+        {
+            done.push((i, cell_view(input, context)));
         }
+        done
+    };
+    let shares: Vec<Vec<(usize, CellView)>> = std::thread::scope(|scope| {
+        let handles: Vec<_> = (1..workers).map(|_| scope.spawn(work)).collect();
+        let mut shares = vec![work()];
+        // A worker can only fail by panicking, which the lints rule out; the cells it
+        // took are computed below if it ever does.
+        shares.extend(handles.into_iter().filter_map(|h| h.join().ok()));
         shares
     });
-    let mut shares: Vec<_> = shares.into_iter().map(Vec::into_iter).collect();
-    (0..inputs.len())
-        .filter_map(|i| shares.get_mut(i % workers).and_then(Iterator::next))
+    let mut views: Vec<Option<CellView>> = inputs.iter().map(|_| None).collect();
+    for (i, view) in shares.into_iter().flatten() {
+        if let Some(slot) = views.get_mut(i) {
+            *slot = Some(view);
+        }
+    }
+    views
+        .into_iter()
+        .zip(inputs)
+        .map(|(view, input)| view.unwrap_or_else(|| cell_view(input, context)))
         .collect()
 }
 
