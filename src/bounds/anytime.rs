@@ -86,7 +86,8 @@ pub fn mixture(s: f64, n: f64, k: f64, delta: f64) -> (f64, f64) {
 }
 
 /// `ln R(M)`, the prior–posterior ratio at population count `m` of `total`.
-fn ln_ratio(s: u64, n: u64, m: u64, total: u64, k: f64) -> f64 {
+/// `ln_falling_total` is `ln_falling(total, n)`, the same at every `m`.
+fn ln_ratio(s: u64, n: u64, m: u64, total: u64, k: f64, ln_falling_total: f64) -> f64 {
     if m < s || total - m < n - s {
         return f64::INFINITY;
     }
@@ -99,7 +100,7 @@ fn ln_ratio(s: u64, n: u64, m: u64, total: u64, k: f64) -> f64 {
     let (a, b) = (k * theta, k * (1.0 - theta));
     let (sf, nf, mf, tf) = (s as f64, n as f64, m as f64, total as f64);
     let mixture = ln_beta(a + sf, b + nf - sf) - ln_beta(a, b);
-    let likelihood = ln_falling(mf, sf) + ln_falling(tf - mf, nf - sf) - ln_falling(tf, nf);
+    let likelihood = ln_falling(mf, sf) + ln_falling(tf - mf, nf - sf) - ln_falling_total;
     mixture - likelihood
 }
 
@@ -112,7 +113,11 @@ fn wor_lower(s: u64, n: u64, total: u64, k: f64, delta: f64) -> u64 {
     let hi = total - (n - s);
     // The likelihood peaks at ⌊(N+1)S/n⌋, where the ratio is at most 1.
     let peak = (((total + 1) as f64 * s as f64 / n as f64).floor() as u64).clamp(s, hi);
-    first_true(s, peak, |m| ln_ratio(s, n, m, total, k) < level).min(peak)
+    let ln_falling_total = ln_falling(total as f64, n as f64);
+    first_true(s, peak, |m| {
+        ln_ratio(s, n, m, total, k, ln_falling_total) < level
+    })
+    .min(peak)
 }
 
 /// The without-replacement confidence sequence as population counts `(M_L, M_U)`.
