@@ -358,12 +358,15 @@ impl Study {
     /// The quota for a cell given as normalised values in the order of
     /// [`Study::cells`], if the study plans it.
     pub fn quota_for(&self, cell: &[String]) -> Option<&Quota> {
+        // Normalised once, not again for every quota (`assess` asks this for every
+        // observed cell: with 100 quotas that was 5,000 allocations a look).
+        let normalised: Vec<String> = cell.iter().map(|c| normalise(c)).collect();
         self.quotas.iter().find(|q| {
             q.key.len() == cell.len()
                 && q.key
                     .iter()
-                    .zip(cell)
-                    .all(|(k, c)| k == c || *k == normalise(c))
+                    .zip(cell.iter().zip(&normalised))
+                    .all(|(k, (c, n))| k == c || k == n)
         })
     }
 
