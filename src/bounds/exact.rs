@@ -107,11 +107,13 @@ pub fn first_true(lo: u64, hi: u64, mut pred: impl FnMut(u64) -> bool) -> u64 {
 /// look lands inside the bracket of a failing and a passing m where a secant through
 /// the last two values meets `level` (next to the guess for the second look), and
 /// after [`SECANT_LOOKS`] looks halving finishes. For a predicate that is false then
-/// true (the tail probabilities and the ratio it is used for rise or fall steadily in
-/// m, by far more than their rounding from one m to the next) the answer is the one
-/// m where it turns true, whichever way it is found: about five values instead of the
-/// log₂(hi − lo) of halving, the first of which, far from the answer, were the cheap
-/// ones. `exact::tests` and `anytime::tests` compare both ways on seeded samples.
+/// true (the hypergeometric tails it is used for rise or fall steadily with the
+/// population count, by far more than their rounding from one count to the next) the
+/// answer is the one m where it turns true, whichever way it is found: about four
+/// values instead of the dozen or so of halving, the first of which, far from the
+/// answer, were the cheap ones. Not for a predicate that may turn back (the
+/// without-replacement anytime ratio near M = N). `exact::tests` compares both ways
+/// on seeded samples.
 pub fn first_true_from(
     lo: u64,
     hi: u64,
