@@ -213,7 +213,13 @@ fn measure_view(name: &str, tally: &MeasureTally, d: &Decision, detail: Detail) 
                     .filter(|i| i.method == decide_by)
                     .map(|i| i.margin)
             });
-            let needed = bounds::more_needed(decide_by, &q, target).ok().flatten();
+            // A measure within the target needs none more (`Some(0)` below): the
+            // search would only find its own n again.
+            let needed = if margin.is_some_and(|m| m <= target) {
+                None
+            } else {
+                bounds::more_needed(decide_by, &q, target).ok().flatten()
+            };
             let eff = q.weights().map(|w| w.effective_n());
             (
                 rows.iter().map(BoundRow::from).collect(),
@@ -558,10 +564,17 @@ const CELLS_PER_CORE: usize = 4;
 /// The view of every cell, in the order of `inputs`. Each cell is independent of the
 /// others (the margin engine's memo is shared and gives the same numbers whichever
 /// thread fills it), so they are computed on up to
-/// [`std::thread::available_parallelism`] threads, dealt out in turn (neighbouring
-/// cells often have similar sizes, and the cost grows with the size).
+/// [`std::thread::available_parallelism`] threads. Each thread takes the next cell
+/// not yet taken, the cells with the most responses first (the cost grows with the
+/// size), so the threads end within about one small cell of each other whatever the
+/// mix of cells, and a thread whose core is busy with other work takes fewer.
 fn cell_views(inputs: &[CellInput<'_>], context: &CellContext<'_>) -> Vec<CellView> {
-    crate::parallel::map_dealt(inputs, CELLS_PER_CORE, |input| cell_view(input, context))
+    crate::parallel::map_costliest_first(
+        inputs,
+        CELLS_PER_CORE,
+        |input| input.tally.map_or(0, |t| t.responses),
+        |input| cell_view(input, context),
+    )
 }
 
 /// One cell's view.

@@ -251,7 +251,9 @@ impl TailRatios {
         TailRatios {
             k,
             n,
-            quotients: Vec::new(),
+            // Room for the series a search usually sums (a few hundred terms), so it
+            // is not grown step by step.
+            quotients: Vec::with_capacity(n.saturating_sub(k).min(1024) as usize),
         }
     }
 
