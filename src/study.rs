@@ -1172,10 +1172,10 @@ impl Doc<'_> {
                 format!("target.margin: {e}"),
             )
         })?;
-        // Each distinct population's size once; they are independent searches of
-        // a tenth of a second or so each, so they run side by side (the answers do not
-        // depend on which thread finds them), and the first problem in file order is
-        // the one reported, as if they had run one after another.
+        // Each distinct population's size once. They are independent searches (the
+        // demo study's five took about 0.1 s one after another), so they run side by
+        // side: the answers do not depend on which thread finds them, and the first
+        // problem in file order is the one reported, as if they had run in turn.
         let mut populations: Vec<Option<u64>> = vec![None];
         for q in &study.quotas {
             if !populations.contains(&q.population) {

@@ -7,16 +7,18 @@
 //!   found from its raw values through a small cache (raw bytes → cell), answers are
 //!   classified through a cache per measure (raw answer → yes / no / missing /
 //!   unexpected), times in the usual `YYYY-MM-DDTHH:MM:SS[.f…]Z` form are computed
-//!   from a cached start of their hour, and the id's bytes and hash are kept. Anything else —
-//!   a wrong field count, text that is not UTF-8, a bad weight or time — is kept
-//!   whole, to go through [`Tally::add_record`] itself, so every rejection is the
-//!   one the record-by-record path gives. Cells, spellings and weights are numbered
-//!   in a [`Registry`] shared with the other halves of the same count.
+//!   from a cached start of their hour, and the id's bytes and hash are kept.
+//!   Anything else — a wrong field count, text that is not UTF-8, a bad weight or
+//!   time — is kept whole, to go through [`Tally::add_record`] itself, so every
+//!   rejection is the one the record-by-record path gives. Cells, spellings and
+//!   weights are numbered in a [`Registry`] shared with the other halves of the same
+//!   count.
 //! - [`Counting`]: the batch's records are counted in file order; as each id is
 //!   counted, the slot of the id [`AHEAD`] ids further on is asked for (prefetched)
-//!   in the id set, so the memory fetches overlap with the counting. A cell's sums go to a staging copy of the
-//!   cell (counts per measure and weight), merged into the tally by
-//!   [`Counter::flush`] (exact sums, so the grouping does not change a bit).
+//!   in the id set, so the memory fetches overlap with the counting. A cell's sums
+//!   go to a staging copy of the cell (counts per measure and weight), merged into
+//!   the tally by [`Counter::flush`] (exact sums, so the grouping does not change a
+//!   bit).
 //!
 //! Duplicates, rejections, unexpected values and the newest time go to the tally as
 //! each record is counted, in file order, so the first-fifty lists and the
