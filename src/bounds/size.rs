@@ -2,6 +2,9 @@
 //! for the worst case over the outcome or for an expected proportion, and how many
 //! more responses a cell needs if its current proportion holds.
 
+use std::collections::HashMap;
+use std::sync::{Mutex, MutexGuard, OnceLock};
+
 use serde::Serialize;
 
 use super::{
@@ -294,17 +297,9 @@ pub fn required_sizes(sq: &SizeQuery) -> Vec<Result<RequiredSize, Unavailable>> 
 /// from a guess instead ([`smallest_within`]), which for margins that shrink steadily
 /// as n grows is the same number after a handful of margins instead of thirty.
 pub fn more_needed(method: Method, q: &Query, target: f64) -> Result<Option<u64>, Unavailable> {
-    let level = q.level();
-    let tune_for = q.tune_for() as f64;
     let cap = q.population().unwrap_or(SEARCH_LIMIT);
     let Some(estimate) = q.estimate() else {
-        let needed = smallest_within(
-            first_n(method),
-            cap,
-            target,
-            steps_back(method, q.population(), true),
-            |n| worst_margin(method, n, level, q.population(), tune_for),
-        )?;
+        let needed = worst_case_total(method, q.level(), q.population(), q.tune_for(), target)?;
         return Ok(needed.map(|n| n.saturating_sub(q.n())));
     };
     let needed = smallest_within(
@@ -315,6 +310,58 @@ pub fn more_needed(method: Method, q: &Query, target: f64) -> Result<Option<u64>
         |n| projected(method, q, estimate, n),
     )?;
     Ok(needed.map(|n| n - q.n()))
+}
+
+/// The worst case's size for [`more_needed`] without an estimate yet. It depends only
+/// on the method, δ, the population, the tuning size and the target, so every
+/// measure of a cell without answers, every such cell with the same quota settings,
+/// and every look until answers arrive ask the same question: the answers are kept,
+/// at most [`PLAN_MEMO`] of them (all dropped when full; any is found again the same
+/// way). On the demo study with an empty file this was about 80 % of a `status`.
+fn worst_case_total(
+    method: Method,
+    level: Level,
+    population: Option<u64>,
+    tune_for: u64,
+    target: f64,
+) -> Result<Option<u64>, Unavailable> {
+    let key = (
+        method,
+        level.delta().to_bits(),
+        population,
+        tune_for,
+        target.to_bits(),
+    );
+    if let Some(&kept) = plan_memo().get(&key) {
+        return kept;
+    }
+    let found = smallest_within(
+        first_n(method),
+        population.unwrap_or(SEARCH_LIMIT),
+        target,
+        steps_back(method, population, true),
+        |n| worst_margin(method, n, level, population, tune_for as f64),
+    );
+    let mut memo = plan_memo();
+    if memo.len() >= PLAN_MEMO {
+        memo.clear();
+    }
+    memo.insert(key, found);
+    found
+}
+
+/// How many worst-case sizes [`worst_case_total`] keeps.
+const PLAN_MEMO: usize = 1024;
+
+/// (method, bits of δ, population, tuning size, bits of the target) → the answer.
+type PlanMemo = HashMap<(Method, u64, Option<u64>, u64, u64), Result<Option<u64>, Unavailable>>;
+
+fn plan_memo() -> MutexGuard<'static, PlanMemo> {
+    static MEMO: OnceLock<Mutex<PlanMemo>> = OnceLock::new();
+    // A thread that panicked while holding it left it whole (every change is one call).
+    MEMO.get_or_init(Mutex::default)
+        .lock()
+        .unwrap_or_else(|e| e.into_inner())
 }
 
 /// Whether a method's margin at a held proportion can widen again as n grows, so
@@ -556,6 +603,38 @@ mod tests {
             let successes = ((n as f64) * share).round() as u64;
             let q = query(successes, n, confidence, tune, population, design_effect);
             prop_assert_eq!(more_needed(method, &q, target), walked(method, &q, target));
+        }
+    }
+
+    /// The worst case (no answers yet) is kept between calls: asked twice, the second
+    /// time in the other order, beside questions that differ from it in one setting
+    /// only, every answer is the walk's.
+    #[test]
+    fn the_kept_worst_case_answers_are_the_walks() {
+        let mut asked = Vec::new();
+        for method in [Method::Anytime, Method::Wilson, Method::Hoeffding] {
+            for population in [None, Some(5_000)] {
+                for tune in [100, 2_000] {
+                    for target in [0.05, 0.1] {
+                        for confidence in [0.9, 0.95] {
+                            asked.push((method, population, tune, target, confidence));
+                        }
+                    }
+                }
+            }
+        }
+        for round in 0..2 {
+            if round == 1 {
+                asked.reverse();
+            }
+            for &(method, population, tune, target, confidence) in &asked {
+                let q = query(0, 0, confidence, tune, population, None);
+                assert_eq!(
+                    more_needed(method, &q, target),
+                    walked(method, &q, target),
+                    "{method} {population:?} tuned for {tune} ±{target} at {confidence}"
+                );
+            }
         }
     }
 
