@@ -219,33 +219,30 @@ impl Reader {
                     self.line += 1;
                     self.taken += 1;
                     data = &data[1..];
-                    if let Some(len) = self.split_in_place(data, out, warnings) {
-                        data = &data[len..];
-                        continue;
-                    }
-                }
-                let skip = data
-                    .iter()
-                    .take_while(|&&b| matches!(b, b'\r' | b'\n' | 0))
-                    .count();
-                for &b in &data[..skip] {
-                    if b == 0 {
-                        let offset = self.taken;
-                        let run = self.nul_run.get_or_insert((offset, 0));
-                        run.1 += 1;
-                    } else {
-                        self.end_nul_run(warnings);
-                        if b == b'\n' {
-                            self.line += 1;
+                } else {
+                    let skip = data
+                        .iter()
+                        .take_while(|&&b| matches!(b, b'\r' | b'\n' | 0))
+                        .count();
+                    for &b in &data[..skip] {
+                        if b == 0 {
+                            let offset = self.taken;
+                            let run = self.nul_run.get_or_insert((offset, 0));
+                            run.1 += 1;
+                        } else {
+                            self.end_nul_run(warnings);
+                            if b == b'\n' {
+                                self.line += 1;
+                            }
                         }
+                        self.taken += 1;
                     }
-                    self.taken += 1;
+                    data = &data[skip..];
+                    if data.is_empty() {
+                        break;
+                    }
+                    self.end_nul_run(warnings);
                 }
-                data = &data[skip..];
-                if data.is_empty() {
-                    break;
-                }
-                self.end_nul_run(warnings);
                 if let Some(len) = self.split_in_place(data, out, warnings) {
                     data = &data[len..];
                     continue;
