@@ -21,23 +21,28 @@
 //! per distinct id, and a growth copies one shard (1/32 of the set) at a time. A set
 //! given room in advance ([`IdSet::reserve`], from an estimate) holds that room.
 //!
-//! A shard of 2 MiB or more is mapped on its own and offered to the kernel for huge
-//! pages (`madvise(MADV_HUGEPAGE)`, through memmap2's safe call): a lookup lands on a
+//! A shard of 64 KiB or more is mapped on its own and given all its memory at once
+//! (`MADV_POPULATE_WRITE`, Linux 5.14 and later, through memmap2's safe call), and
+//! the maps of a large reserve are made on every core. Left to the lookups (as a
+//! vector's memory is), each page's first lookup maps the shared zero page and its
+//! first insert copies it, interrupting the other cores to drop the old mapping:
+//! `perf stat` counted 12,000 page faults and as many flushes of the address cache
+//! for the 1 M-row benchmark, 35,000 for the 10 M-row one. A map of 2 MiB or more is
+//! also offered to the kernel for huge pages (`MADV_HUGEPAGE`): a lookup lands on a
 //! random slot, and with 4 KiB pages nearly every one also misses the address
 //! translation cache, which costs more than the memory access itself on a virtual
-//! machine. Where the kernel declines, the pages are ordinary and only slower. Such a
-//! map is given all its memory at once (`MADV_POPULATE_WRITE`), and the maps of a
-//! large reserve are made on every core: otherwise each page's first lookup maps the
-//! shared zero page and its first insert copies it, interrupting the other cores to
-//! drop the old mapping (on the 10 M-row benchmark, 35,000 page faults and as many
-//! flushes of the address cache; 1,700 and 110 now).
+//! machine. Both are advice: where the kernel declines, the pages are ordinary and
+//! only slower.
 
 use std::fmt;
 
 /// Shards, chosen by the top five bits of the hash.
 const SHARDS: usize = 32;
-/// Slots from which a shard is mapped on its own, for huge pages (2 MiB).
-const MAPPED_SLOTS: usize = 1 << 17;
+/// Slots from which a shard is mapped on its own, its memory taken at once (64 KiB).
+const MAPPED_SLOTS: usize = 1 << 12;
+/// Slots from which a map is offered for huge pages and a reserve makes its maps on
+/// every core (2 MiB).
+const HUGE_SLOTS: usize = 1 << 17;
 /// The smallest shard that holds anything.
 const FIRST_CAPACITY: usize = 8;
 
@@ -86,12 +91,11 @@ impl Slots {
         if capacity >= MAPPED_SLOTS
             && let Ok(map) = memmap2::MmapMut::map_anon(capacity * 16)
         {
-            // Only advice: the map works the same if the kernel ignores either.
-            let _ = map.advise(memmap2::Advice::HugePage);
-            // Every page taken now, writable (Linux 5.14 and later), rather than at
-            // the first lookup that lands on it: that lookup would map the shared
-            // zero page, and the first insert would then copy it and interrupt the
-            // other cores to drop the old mapping.
+            // Only advice (see the module notes): the map works the same if the
+            // kernel ignores either.
+            if capacity >= HUGE_SLOTS {
+                let _ = map.advise(memmap2::Advice::HugePage);
+            }
             let _ = map.advise(memmap2::Advice::PopulateWrite);
             return Slots::Mapped(map, capacity);
         }
@@ -236,7 +240,7 @@ impl IdSet {
             .collect();
         // The new slots' memory is taken (and zeroed by the kernel) on every core: a
         // large reserve is a few hundred megabytes, and the readers wait meanwhile.
-        let per_thread = match capacity >= MAPPED_SLOTS {
+        let per_thread = match capacity >= HUGE_SLOTS {
             true => 1,
             false => SHARDS,
         };
@@ -369,8 +373,8 @@ mod tests {
         for &h in &before {
             assert_eq!(reserved.insert_hash(h), grown.insert_hash(h));
         }
-        // Enough for every shard to pass the size mapped on its own.
-        reserved.reserve(SHARDS * MAPPED_SLOTS);
+        // Enough for every shard's map to be offered huge pages.
+        reserved.reserve(SHARDS * HUGE_SLOTS);
         assert!(
             reserved
                 .shards
