@@ -748,9 +748,9 @@ impl Counting {
 /// unlike `trim_ascii`, also removes the vertical tab).
 fn trim_ascii(bytes: &[u8]) -> &[u8] {
     let space = |b: &u8| matches!(b, b' ' | b'\t' | b'\n' | b'\x0b' | b'\x0c' | b'\r');
-    // The usual case: nothing to trim.
+    // The usual case: nothing to trim (every white space byte is at most a space).
     match (bytes.first(), bytes.last()) {
-        (Some(first), Some(last)) if !space(first) && !space(last) => return bytes,
+        (Some(&first), Some(&last)) if first > b' ' && last > b' ' => return bytes,
         _ => {}
     }
     let start = bytes.iter().position(|b| !space(b)).unwrap_or(bytes.len());
@@ -954,6 +954,19 @@ mod tests {
     use super::*;
     use rand::{Rng, SeedableRng};
     use rand_chacha::ChaCha8Rng;
+
+    proptest::proptest! {
+        /// ASCII text is trimmed as the standard library's `str::trim` trims it:
+        /// any ASCII in the middle, and at either end white space, bytes that are
+        /// not white space just below and above the space (the unit separator,
+        /// `!`), NUL or a letter.
+        #[test]
+        fn ascii_is_trimmed_as_str_trim_trims(
+            text in "[ \\t\\n\\x0b\\x0c\\r\\x00\\x1f!a]{0,3}[\\x00-\\x7f]{0,8}[ \\t\\n\\x0b\\x0c\\r\\x00\\x1f!a]{0,3}",
+        ) {
+            proptest::prop_assert_eq!(trim_ascii(text.as_bytes()), text.trim().as_bytes());
+        }
+    }
 
     /// More raw spellings of cells than the cache holds (the later ones carried by
     /// their records), with the first record of some cells a duplicate: the same
