@@ -13,12 +13,12 @@
 //!   rejection is the one the record-by-record path gives. Cells, spellings and
 //!   weights are numbered in a [`Registry`] shared with the other halves of the same
 //!   count.
-//! - [`Counting`]: the batch's records are counted in file order; as each id is
-//!   counted, the slot of the id [`AHEAD`] ids further on is asked for (prefetched)
-//!   in the id set, so the memory fetches overlap with the counting. A cell's sums
-//!   go to a staging copy of the cell (counts per measure and weight), merged into
-//!   the tally by [`Counter::flush`] (exact sums, so the grouping does not change a
-//!   bit).
+//! - [`Counting`]: the batch's records are counted in file order; every [`AHEAD`]
+//!   ids counted, the id set's slots for a further run of [`AHEAD`] ids (the run
+//!   after the next) are asked for (prefetched) together, so the memory fetches
+//!   overlap with each other and with the counting. A cell's sums go to a staging
+//!   copy of the cell (counts per measure and weight), merged into the tally by
+//!   [`Counter::flush`] (exact sums, so the grouping does not change a bit).
 //!
 //! Duplicates, rejections, unexpected values and the newest time go to the tally as
 //! each record is counted, in file order, so the first-fifty lists and the
@@ -45,7 +45,8 @@ const WEIGHT_CACHE: usize = 256;
 const BATCH: usize = 256;
 /// Cells of up to this many columns are looked up by their packed values.
 const PACKED_CELLS: usize = 4;
-/// How many ids ahead the id set's slot is prefetched (see [`Counting::count`]).
+/// How many ids' slots in the id set are prefetched together, and how far ahead
+/// (see [`Counting::count`]).
 const AHEAD: usize = 16;
 /// The most columns a record may be read from in place (more go record by record).
 const MAX_USED: usize = 24;
@@ -546,11 +547,14 @@ impl Counting {
         }
     }
 
-    /// Count the batch's records in order, and empty it (keeping its room). The id
-    /// set's slot for the id [`AHEAD`] ids further on is asked for (prefetched) as each
-    /// id is counted, so the memory fetches overlap with each other and with the
-    /// counting instead of waiting one after another (one prefetch per id rather than a
-    /// burst of them per run of records; see DEVELOPERS.md, "Reading fast").
+    /// Count the batch's records in order, and empty it (keeping its room). The ids
+    /// are taken in runs of [`AHEAD`]: at the start of each run, the id set's slots
+    /// for the next run are asked for (prefetched) in one short loop. On a virtual machine
+    /// nearly every slot also misses the address translation cache, and a prefetch
+    /// holds its place until its page walk ends: one prefetch per id, with the
+    /// counting of a record between two of them, filled the processor's window of
+    /// work in flight, so the walks ran one after another. Issued together, the walks
+    /// overlap (see DEVELOPERS.md, "Reading fast").
     pub(crate) fn count(&mut self, tally: &mut Tally, batch: &mut Batch) {
         let measures = self.layout.measures.len();
         {
@@ -574,12 +578,14 @@ impl Counting {
         let (mut answers, mut unexpected) = (0, 0);
         let (mut records, mut own) = (batch.records.iter(), batch.own_spellings.iter_mut());
         let mut own_weights = batch.weights.iter();
-        // The id set's slots for the first ids, then one id further on per id counted.
+        // The id set's slots for the first run of ids; then, at the start of each run,
+        // those of the run after it.
         for &hash in batch.hashes.iter().take(AHEAD) {
             tally.ids.prefetch(hash);
         }
         let mut hashes = batch.hashes.iter();
-        let mut ahead = batch.hashes.iter().skip(AHEAD);
+        let mut ahead = batch.hashes.chunks(AHEAD).skip(1);
+        let mut ids_counted = 0usize;
         for read in &batch.entries {
             let line = read.line;
             match read.kind {
@@ -619,10 +625,15 @@ impl Counting {
                 Some(_) => hashes.next().copied(),
                 None => None,
             };
-            if hash.is_some()
-                && let Some(&further) = ahead.next()
-            {
-                tally.ids.prefetch(further);
+            if hash.is_some() {
+                if ids_counted.is_multiple_of(AHEAD)
+                    && let Some(further) = ahead.next()
+                {
+                    for &h in further {
+                        tally.ids.prefetch(h);
+                    }
+                }
+                ids_counted += 1;
             }
             if let Some(hash) = hash
                 && !tally.ids.insert_hash(hash)
