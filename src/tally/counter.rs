@@ -13,12 +13,12 @@
 //!   rejection is the one the record-by-record path gives. Cells, spellings and
 //!   weights are numbered in a [`Registry`] shared with the other halves of the same
 //!   count.
-//! - [`Counting`]: the batch's records are counted in file order; every [`AHEAD`]
-//!   ids counted, the id set's slots for a further run of [`AHEAD`] ids (the run
-//!   after the next) are asked for (prefetched) together, so the memory fetches
-//!   overlap with each other and with the counting. A cell's sums go to a staging
-//!   copy of the cell (counts per measure and weight), merged into the tally by
-//!   [`Counter::flush`] (exact sums, so the grouping does not change a bit).
+//! - [`Counting`]: the batch's records are counted in file order, their ids in runs
+//!   of [`AHEAD`]; at the start of each run the id set's slots for the next run are
+//!   asked for (prefetched) together, so the memory fetches overlap with each other
+//!   and with the counting. A cell's sums go to a staging copy of the cell (counts
+//!   per measure and weight), merged into the tally by [`Counter::flush`] (exact
+//!   sums, so the grouping does not change a bit).
 //!
 //! Duplicates, rejections, unexpected values and the newest time go to the tally as
 //! each record is counted, in file order, so the first-fifty lists and the
@@ -45,8 +45,8 @@ const WEIGHT_CACHE: usize = 256;
 const BATCH: usize = 256;
 /// Cells of up to this many columns are looked up by their packed values.
 const PACKED_CELLS: usize = 4;
-/// How many ids' slots in the id set are prefetched together, and how far ahead
-/// (see [`Counting::count`]).
+/// The ids whose slots in the id set are prefetched together, one run ahead (see
+/// [`Counting::count`]).
 const AHEAD: usize = 16;
 /// The most columns a record may be read from in place (more go record by record).
 const MAX_USED: usize = 24;
@@ -549,12 +549,12 @@ impl Counting {
 
     /// Count the batch's records in order, and empty it (keeping its room). The ids
     /// are taken in runs of [`AHEAD`]: at the start of each run, the id set's slots
-    /// for the next run are asked for (prefetched) in one short loop. On a virtual machine
-    /// nearly every slot also misses the address translation cache, and a prefetch
-    /// holds its place until its page walk ends: one prefetch per id, with the
-    /// counting of a record between two of them, filled the processor's window of
-    /// work in flight, so the walks ran one after another. Issued together, the walks
-    /// overlap (see DEVELOPERS.md, "Reading fast").
+    /// for the next run are asked for (prefetched) in one short loop. On a virtual
+    /// machine nearly every slot also misses the address translation cache, and a
+    /// prefetch holds its place until its page walk ends: one prefetch per id, with
+    /// the counting of a record between two of them, filled the processor's window
+    /// of work in flight, so the walks ran one after another. Issued together, the
+    /// walks overlap (see DEVELOPERS.md, "Reading fast").
     pub(crate) fn count(&mut self, tally: &mut Tally, batch: &mut Batch) {
         let measures = self.layout.measures.len();
         {

@@ -361,9 +361,9 @@ mod tests {
             .collect()
     }
 
-    /// Room taken for millions of ids (every shard mapped, the maps made on two
-    /// threads) keeps the hashes held before, and the set then answers as one grown
-    /// insert by insert.
+    /// Room taken for millions of ids (every shard a map offered huge pages, the
+    /// maps made on every core) keeps the hashes held before, and the set then
+    /// answers as one grown insert by insert.
     #[test]
     fn a_large_reserve_keeps_what_was_held() {
         let before = hashes(7, 5_000);
@@ -390,8 +390,8 @@ mod tests {
         assert_eq!(reserved, grown);
     }
 
-    /// A shard large enough to live in its own map (for huge pages) holds and finds
-    /// exactly what a vector-backed one does, through growth and cloning.
+    /// A shard large enough to live in its own map holds and finds exactly what a
+    /// vector-backed one does, through growth and cloning.
     #[test]
     fn mapped_slots_hold_what_vector_slots_hold() {
         let mapped = Slots::zeroed(MAPPED_SLOTS);
