@@ -583,9 +583,7 @@ impl Counting {
         for &hash in batch.hashes.iter().take(AHEAD) {
             tally.ids.prefetch(hash);
         }
-        let mut hashes = batch.hashes.iter();
-        let mut ahead = batch.hashes.chunks(AHEAD).skip(1);
-        let mut ids_counted = 0usize;
+        let mut hashes = batch.hashes.iter().enumerate();
         for read in &batch.entries {
             let line = read.line;
             match read.kind {
@@ -622,19 +620,17 @@ impl Counting {
             };
             tally.rows_read += 1;
             let hash = match read.id() {
-                Some(_) => hashes.next().copied(),
+                Some(_) => hashes.next().map(|(i, &hash)| {
+                    if i.is_multiple_of(AHEAD) {
+                        let next = batch.hashes.get(i + AHEAD..).unwrap_or_default();
+                        for &h in next.iter().take(AHEAD) {
+                            tally.ids.prefetch(h);
+                        }
+                    }
+                    hash
+                }),
                 None => None,
             };
-            if hash.is_some() {
-                if ids_counted.is_multiple_of(AHEAD)
-                    && let Some(further) = ahead.next()
-                {
-                    for &h in further {
-                        tally.ids.prefetch(h);
-                    }
-                }
-                ids_counted += 1;
-            }
             if let Some(hash) = hash
                 && !tally.ids.insert_hash(hash)
             {

@@ -240,10 +240,7 @@ impl IdSet {
             .collect();
         // The new slots' memory is taken (and zeroed by the kernel) on every core: a
         // large reserve is a few hundred megabytes, and the readers wait meanwhile.
-        let per_thread = match capacity >= HUGE_SLOTS {
-            true => 1,
-            false => SHARDS,
-        };
+        let per_thread = if capacity >= HUGE_SLOTS { 1 } else { SHARDS };
         let fresh = crate::parallel::map_costliest_first(
             &short,
             per_thread,
