@@ -10,7 +10,7 @@
 //! a beta-binomial prior on the population count, centred like the mixture above.
 
 use super::exact::first_true;
-use super::roots::brent;
+use super::roots::{Start, brent_from};
 use super::special::{ln_beta, ln_falling, ln_gamma};
 
 /// The mixture's prior strength `k` for a planned size `t`:
@@ -83,7 +83,10 @@ fn stirling_error(x: f64) -> f64 {
     }
 }
 
-/// The lower end of `{p : M_n(p) < 1/δ}` below p̂ = s/n (0 when the set reaches 0).
+/// The lower end of `{p : M_n(p) < 1/δ}` below p̂ = s/n (0 when the set reaches 0):
+/// Brent's method from a narrow bracket around [`mixture_guess`], or from the whole
+/// of `[10⁻³⁰⁰, p̂]` when that bracket misses (7 values of the mixture at B3's counts
+/// instead of about 17).
 fn mixture_lower(s: f64, n: f64, k: f64, delta: f64) -> f64 {
     let level = (1.0 / delta).ln();
     let p_hat = s / n;
@@ -93,7 +96,36 @@ fn mixture_lower(s: f64, n: f64, k: f64, delta: f64) -> f64 {
     if p_hat <= floor || gap(floor) <= 0.0 {
         return 0.0;
     }
-    brent(gap, floor, p_hat)
+    let start = Start::within(floor, p_hat);
+    let start = match mixture_guess(s, n, k, level) {
+        Some(g) => {
+            let half = MIXTURE_WITHIN * (p_hat - g);
+            start.expecting(g - half, g + half)
+        }
+        None => start,
+    };
+    brent_from(gap, start)
+}
+
+/// Half the width of the bracket [`mixture_lower`] tries first, as a share of the
+/// guessed end's distance from p̂. On a seeded sample of 20,000 (n up to 10⁷, p̂
+/// from 0.1 to 0.9, levels from 90 % to 1 − 10⁻⁶) [`mixture_guess`] was within 6.7 %
+/// of that distance from n = 1,000 on, and within 21 % below that.
+const MIXTURE_WITHIN: f64 = 0.08;
+
+/// Where the normal approximation puts the mixture's lower end: to second order in
+/// `d = S − np`, `ln M_n(p) ≈ d²/(2Tpq) − ½ ln(T/k)` (the expansion of
+/// [`ln_mixture`]'s two logarithms, without its `½` terms and Ω), so the end solves
+/// `(p̂ − p)² = c p(1 − p)` with `c = 2T(L + ½ ln(T/k))/n²`, `L = ln(1/δ)`. It lies a
+/// little nearer p̂ than the end itself. Only where the search starts.
+fn mixture_guess(s: f64, n: f64, k: f64, level: f64) -> Option<f64> {
+    let p_hat = s / n;
+    let t = n + k;
+    let c = 2.0 * t * (level + 0.5 * (t / k).ln()) / (n * n);
+    let b = 2.0 * p_hat + c;
+    let discriminant = b * b - 4.0 * (1.0 + c) * p_hat * p_hat;
+    let g = (b - discriminant.sqrt()) / (2.0 * (1.0 + c));
+    (g.is_finite() && g > 0.0 && g < p_hat).then_some(g)
 }
 
 /// The mixture confidence sequence at `s` successes in `n` (either may be fractional
@@ -174,6 +206,19 @@ mod tests {
             + omega
     }
 
+    /// Seeded successes and responses, whole or fractional (as weights give them), n
+    /// from 1 to 10⁷, none, all or some successes.
+    fn counts(rng: &mut ChaCha8Rng) -> (f64, f64) {
+        let n = (rng.random::<f64>() * 1e7f64.ln()).exp();
+        let n = if rng.random::<bool>() { n.ceil() } else { n };
+        let s = match rng.random_range(0..6) {
+            0 => 0.0,
+            1 => n,
+            _ => (rng.random::<f64>() * n).floor(),
+        };
+        (s, n)
+    }
+
     /// Seeded counts (whole and fractional, as weights give them) from 1 to 10⁷, prior
     /// strengths from the floor 10⁻³ to 10⁶ (ω by its series and by ln Γ), and p across
     /// (0, 1] including its ends: the same bits.
@@ -181,13 +226,7 @@ mod tests {
     fn the_terms_fixed_in_p_taken_once_give_the_same_bits() {
         let mut rng = ChaCha8Rng::seed_from_u64(1970);
         for _ in 0..20_000 {
-            let n = (rng.random::<f64>() * 1e7f64.ln()).exp();
-            let n = if rng.random::<bool>() { n.ceil() } else { n };
-            let s = match rng.random_range(0..6) {
-                0 => 0.0,
-                1 => n,
-                _ => (rng.random::<f64>() * n).floor(),
-            };
+            let (s, n) = counts(&mut rng);
             let k = [1e-3, 0.5, 14.0, 15.0, 300.0, 1e6][rng.random_range(0..6)];
             let p = match rng.random_range(0..6) {
                 0 => 1.0,
@@ -203,6 +242,61 @@ mod tests {
             assert!(
                 got.to_bits() == want.to_bits() || (got.is_nan() && want.is_nan()),
                 "S = {s}, n = {n}, k = {k}, p = {p}: {got:e} against {want:e}"
+            );
+        }
+    }
+
+    /// `mixture_lower` as it was before its search started from a guess: Brent's
+    /// method over the whole of `[10⁻³⁰⁰, p̂]`.
+    fn mixture_lower_as_before(s: f64, n: f64, k: f64, delta: f64) -> f64 {
+        let level = (1.0 / delta).ln();
+        let fixed = Fixed::new(n, k);
+        let gap = |p: f64| ln_mixture(s, n, k, p, &fixed) - level;
+        if s / n <= 1e-300 || gap(1e-300) <= 0.0 {
+            return 0.0;
+        }
+        super::super::roots::brent(gap, 1e-300, s / n)
+    }
+
+    /// Seeded counts (whole and fractional, as weights give them) from 1 to 10⁷, every
+    /// share, levels from 90 % to 1 − 10⁻⁶ and the prior strengths that planned sizes
+    /// from 10 to 20,000 give: the lower end found from a guess is the one found from the
+    /// whole bracket to within a relative 1e-13. Both stop within a few ulps of where
+    /// the computed mixture crosses the level; where the prior outweighs the responses
+    /// (k ≫ n) its rounding moves that crossing, by up to 4.3e-14 on 20,000 draws.
+    #[test]
+    fn the_lower_end_from_a_guess_is_as_before() {
+        let mut rng = ChaCha8Rng::seed_from_u64(1971);
+        for _ in 0..5000 {
+            let (s, n) = counts(&mut rng);
+            let delta = [0.05, 0.01, 0.1, 1e-6][rng.random_range(0..4)];
+            let k = prior_strength(rng.random_range(10.0..20_000.0), delta);
+            let (got, want) = (
+                mixture_lower(s, n, k, delta),
+                mixture_lower_as_before(s, n, k, delta),
+            );
+            assert!(
+                (got - want).abs() <= 1e-13 * want,
+                "S = {s}, n = {n}, k = {k}, δ = {delta}: {got:e} against {want:e}"
+            );
+        }
+    }
+
+    /// From 1,000 responses on, with p̂ from 0.1 to 0.9, the guessed end is inside the
+    /// bracket the search tries first, so the short way is the one taken.
+    #[test]
+    fn the_guess_is_inside_the_first_bracket() {
+        let mut rng = ChaCha8Rng::seed_from_u64(1972);
+        for _ in 0..5000 {
+            let n = (rng.random_range(1e3f64.ln()..1e7f64.ln())).exp().ceil();
+            let s = (rng.random_range(0.1..0.9) * n).floor();
+            let delta = [0.05, 0.01, 0.1, 1e-6][rng.random_range(0..4)];
+            let k = prior_strength(rng.random_range(10.0..20_000.0), delta);
+            let end = mixture_lower(s, n, k, delta);
+            let guess = mixture_guess(s, n, k, (1.0 / delta).ln()).unwrap_or(f64::NAN);
+            assert!(
+                (guess - end).abs() < MIXTURE_WITHIN * (s / n - guess),
+                "S = {s}, n = {n}, k = {k}, δ = {delta}: guess {guess:e}, end {end:e}"
             );
         }
     }

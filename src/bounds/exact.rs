@@ -2,7 +2,7 @@
 //! sampling with replacement, and its hypergeometric counterpart for a finite
 //! population sampled without replacement.
 
-use super::roots::brent_pair;
+use super::roots::{Start, brent_pair};
 use super::special::{
     TailRatios, ln_binom_upper_pair, ln_hyper_lower, ln_hyper_upper, normal_two_sided,
 };
@@ -12,9 +12,12 @@ use super::special::{
 ///
 /// The two ends are found by Brent's method on `ln P − ln(δ/2)`, the two searches
 /// side by side so that their tails are summed together ([`brent_pair`],
-/// [`ln_binom_upper_pair`], with each tail's quotients divided once): each search and
-/// each tail is exactly what it is alone, `P(X ≤ S)` being `P(Y ≥ n − S)` for
-/// `Y = n − X` as [`super::special::ln_binom_lower`] computes it.
+/// [`ln_binom_upper_pair`], with each tail's quotients divided once), `P(X ≤ S)` being
+/// `P(Y ≥ n − S)` for `Y = n − X` as [`super::special::ln_binom_lower`] computes it.
+/// Each search starts from a narrow bracket around an approximate end
+/// ([`beta_quantile_guess`]), and from the whole of `[0, p̂]` or `[p̂, 1]` when that
+/// bracket misses: 7 pairs of tails at B3's counts instead of 13, and nearer the ends,
+/// where the tails are shorter.
 pub fn clopper_pearson(s: u64, n: u64, delta: f64) -> (f64, f64) {
     let cut = (0.5 * delta).ln();
     let nf = n as f64;
@@ -36,7 +39,59 @@ pub fn clopper_pearson(s: u64, n: u64, delta: f64) -> (f64, f64) {
         );
         (a - cut, b - cut)
     };
-    brent_pair(tails, (0.0, p_hat), (p_hat, 1.0))
+    // The lower end is the δ/2 quantile of Beta(S, n − S + 1), the upper the 1 − δ/2
+    // quantile of Beta(S + 1, n − S).
+    let z = normal_two_sided(delta);
+    let (sf, rest) = (s as f64, (n - s) as f64);
+    let around = |start: Start, guess: Option<f64>| match guess {
+        Some(g) => {
+            let half = EXPECTED_WITHIN * (p_hat - g).abs();
+            start.expecting(g - half, g + half)
+        }
+        None => start,
+    };
+    brent_pair(
+        tails,
+        around(
+            Start::within(0.0, p_hat),
+            beta_quantile_guess(sf, rest + 1.0, -z),
+        ),
+        around(
+            Start::within(p_hat, 1.0),
+            beta_quantile_guess(sf + 1.0, rest, z),
+        ),
+    )
+}
+
+/// Half the width of the bracket a Clopper–Pearson search tries first, as a share of
+/// the guessed end's distance from p̂. On a seeded sample of 20,000 intervals (n up to
+/// 10⁶) [`beta_quantile_guess`] was within 1.5 % of that distance at levels from 50 %
+/// to 99 %, and within 8 % at 1 − 10⁻⁴ and 1 − 10⁻⁹, where a miss costs two tails more
+/// than the whole bracket would.
+const EXPECTED_WITHIN: f64 = 0.03;
+
+/// An approximate quantile of the Beta(a, b) distribution at the standard normal
+/// deviate `z` (negative for the lower tail), from the F distribution
+/// (`X = aF/(b + aF)`, `F ~ F(2a, 2b)`) and Paulson's (1942) normal approximation to
+/// it, which rests on Wilson and Hilferty's (1931) cube roots: with `A = 1/(9a)`,
+/// `B = 1/(9b)`, `F^(1/3) = ((1−A)(1−B) + z√((1−A)²B + (1−B)²A − z²AB)) / ((1−B)² − z²B)`.
+/// `None` where that breaks down (a small b at an extreme level). Only where a search
+/// starts.
+fn beta_quantile_guess(a: f64, b: f64, z: f64) -> Option<f64> {
+    let (ca, cb) = (1.0 / (9.0 * a), 1.0 / (9.0 * b));
+    let z2 = z * z;
+    let denominator = (1.0 - cb) * (1.0 - cb) - z2 * cb;
+    let spread = (1.0 - ca) * (1.0 - ca) * cb + (1.0 - cb) * (1.0 - cb) * ca - z2 * ca * cb;
+    if denominator <= 0.0 || spread < 0.0 {
+        return None;
+    }
+    let root = ((1.0 - ca) * (1.0 - cb) + z * spread.sqrt()) / denominator;
+    if root <= 0.0 {
+        return None;
+    }
+    let f = root * root * root;
+    let x = a * f / (b + a * f);
+    x.is_finite().then_some(x)
 }
 
 /// The exact interval for the share of successes in a population of `total` units,
@@ -267,11 +322,15 @@ mod tests {
     }
 
     /// Seeded counts from 1 to 10⁶ responses, every share of successes from none to
-    /// all, at usual and extreme levels.
+    /// all, at usual and extreme levels: the ends found from a guess are the ends found
+    /// from the whole of `[0, p̂]` and `[p̂, 1]` (before `clopper_pearson` started from a
+    /// guess) to within a relative 4e-15. Both searches stop within a few ulps of where
+    /// the same computed tail crosses δ/2, which is as well as either knows the end; on
+    /// 20,000 such draws the largest difference was 1.0e-15 (8 ulps).
     #[test]
-    fn both_ends_side_by_side_are_as_before() {
+    fn both_ends_from_a_guess_are_as_before() {
         let mut rng = ChaCha8Rng::seed_from_u64(1934);
-        for _ in 0..600 {
+        for _ in 0..3000 {
             let n = (rng.random::<f64>() * 1e6f64.ln()).exp() as u64 + 1;
             let s = match rng.random_range(0..8) {
                 0 => 0,
@@ -282,11 +341,38 @@ mod tests {
             let delta = [0.05, 0.01, 0.1, 0.05 / 300.0, 1e-9, 0.5][rng.random_range(0..6)];
             let (lo, hi) = clopper_pearson(s, n, delta);
             let (want_lo, want_hi) = clopper_pearson_as_before(s, n, delta);
-            assert_eq!(
-                (lo.to_bits(), hi.to_bits()),
-                (want_lo.to_bits(), want_hi.to_bits()),
-                "S = {s}, n = {n}, δ = {delta}: {lo:e}, {hi:e} against {want_lo:e}, {want_hi:e}"
-            );
+            for (got, want) in [(lo, want_lo), (hi, want_hi)] {
+                assert!(
+                    (got - want).abs() <= 4e-15 * want,
+                    "S = {s}, n = {n}, δ = {delta}: {lo:e}, {hi:e} against {want_lo:e}, {want_hi:e}"
+                );
+            }
+        }
+    }
+
+    /// At the usual levels (50 % to 99 %) the approximate ends are inside the bracket
+    /// each search tries first, so the short way is the one taken: seeded counts from
+    /// 1 to 10⁶ responses, every share but none and all.
+    #[test]
+    fn the_guess_is_inside_the_first_bracket_at_usual_levels() {
+        let mut rng = ChaCha8Rng::seed_from_u64(1942);
+        for _ in 0..5000 {
+            let n = (rng.random::<f64>() * 1e6f64.ln()).exp() as u64 + 2;
+            let s = rng.random_range(1..n);
+            let delta = [0.5, 0.1, 0.05, 0.01][rng.random_range(0..4)];
+            let (lo, hi) = clopper_pearson(s, n, delta);
+            let z = normal_two_sided(delta);
+            let (sf, rest, p_hat) = (s as f64, (n - s) as f64, s as f64 / n as f64);
+            for (guess, end) in [
+                (beta_quantile_guess(sf, rest + 1.0, -z), lo),
+                (beta_quantile_guess(sf + 1.0, rest, z), hi),
+            ] {
+                let guess = guess.unwrap_or(f64::NAN);
+                assert!(
+                    (guess - end).abs() < EXPECTED_WITHIN * (p_hat - guess).abs(),
+                    "S = {s}, n = {n}, δ = {delta}: guess {guess:e}, end {end:e}"
+                );
+            }
         }
     }
 }

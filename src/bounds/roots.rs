@@ -11,17 +11,87 @@ pub fn brent(mut f: impl FnMut(f64) -> f64, a: f64, b: f64) -> f64 {
     search.root()
 }
 
-/// Two roots at once, `f1` in `[a1, b1]` and `f2` in `[a2, b2]`: each search is exactly
-/// [`brent`]'s, step for step, but their function values are asked for together,
-/// `both(Some(x1), Some(x2))` (or with `None` once a search has finished, whose value
-/// is then ignored), so an evaluator that computes two values at once can overlap
-/// them.
+/// Where a search for a root starts: the bracket `[a, b]` it is known to be in (f of
+/// opposite signs at the ends, either end's value perhaps infinite), and perhaps a
+/// narrower bracket inside it where the root is expected.
+#[derive(Clone, Copy, Debug)]
+pub struct Start {
+    bracket: (f64, f64),
+    expected: Option<(f64, f64)>,
+}
+
+impl Start {
+    /// The root is somewhere in `[a, b]`.
+    pub fn within(a: f64, b: f64) -> Start {
+        Start {
+            bracket: (a, b),
+            expected: None,
+        }
+    }
+
+    /// The root is in `[a, b]` and expected in `[lo, hi]`; an expected bracket that is
+    /// not inside `[a, b]`, or is empty, is ignored.
+    pub fn expecting(self, lo: f64, hi: f64) -> Start {
+        let (a, b) = self.bracket;
+        let inside = a <= lo && lo < hi && hi <= b;
+        Start {
+            expected: inside.then_some((lo, hi)),
+            ..self
+        }
+    }
+
+    /// The search to run, given f at the expected bracket's ends (ignored without one):
+    /// on that bracket when f's signs there differ or one is 0, else on the whole.
+    fn search(self, f_lo: f64, f_hi: f64) -> Brent {
+        let straddles = (f_lo <= 0.0 && f_hi >= 0.0) || (f_lo >= 0.0 && f_hi <= 0.0);
+        match self.expected {
+            Some((lo, hi)) if straddles => {
+                let mut search = Brent::new(lo, hi);
+                search.give(f_lo);
+                search.give(f_hi);
+                search
+            }
+            _ => Brent::new(self.bracket.0, self.bracket.1),
+        }
+    }
+}
+
+/// A root of `f` from a [`Start`]: where it has an expected bracket, f is asked for
+/// at its two ends first; if their signs differ (or one is a root), Brent's method runs
+/// on that bracket from those two values, and otherwise on the whole bracket, as
+/// [`brent`] does. Either way the answer is a root to within a few ulps; which of the
+/// nearly equal floats there it is depends on the bracket the search started from.
+pub fn brent_from(mut f: impl FnMut(f64) -> f64, start: Start) -> f64 {
+    let (f_lo, f_hi) = match start.expected {
+        Some((lo, hi)) => (f(lo), f(hi)),
+        None => (f64::NAN, f64::NAN),
+    };
+    let mut search = start.search(f_lo, f_hi);
+    while let Some(x) = search.wants() {
+        search.give(f(x));
+    }
+    search.root()
+}
+
+/// Two roots at once, each searched as [`brent_from`] searches, but with their
+/// function values asked for together, `both(Some(x1), Some(x2))` (or with `None` once
+/// a search has finished, whose value is then ignored), so an evaluator that computes
+/// two values at once can overlap them.
 pub fn brent_pair(
     mut both: impl FnMut(Option<f64>, Option<f64>) -> (f64, f64),
-    (a1, b1): (f64, f64),
-    (a2, b2): (f64, f64),
+    first: Start,
+    second: Start,
 ) -> (f64, f64) {
-    let (mut first, mut second) = (Brent::new(a1, b1), Brent::new(a2, b2));
+    let (e1, e2) = (first.expected, second.expected);
+    let ((lo1, lo2), (hi1, hi2)) = if e1.is_some() || e2.is_some() {
+        (
+            both(e1.map(|e| e.0), e2.map(|e| e.0)),
+            both(e1.map(|e| e.1), e2.map(|e| e.1)),
+        )
+    } else {
+        ((f64::NAN, f64::NAN), (f64::NAN, f64::NAN))
+    };
+    let (mut first, mut second) = (first.search(lo1, hi1), second.search(lo2, hi2));
     loop {
         let (x1, x2) = (first.wants(), second.wants());
         if x1.is_none() && x2.is_none() {
@@ -364,11 +434,62 @@ mod tests {
             };
             let (r1, r2) = brent_pair(
                 |x, y| (x.map_or(f64::NAN, f1), y.map_or(f64::NAN, f2)),
-                (*a1, *b1),
-                (*a2, *b2),
+                Start::within(*a1, *b1),
+                Start::within(*a2, *b2),
             );
             assert_eq!(r1.to_bits(), brent_as_before(f1, *a1, *b1).to_bits());
             assert_eq!(r2.to_bits(), brent_as_before(f2, *a2, *b2).to_bits());
+        }
+    }
+
+    /// From an expected bracket around the root, or one that misses it on either side
+    /// (then the whole bracket is searched), each of a pair of searches ends where f, as
+    /// computed, changes sign within 4 ε|x| either way, as a search over the whole
+    /// bracket does. (Not always at the same float: where f's own rounding is coarser
+    /// than an ulp, as in `ln(1 − x)` near a small root, the sign changes more than once
+    /// there.)
+    #[test]
+    fn an_expected_bracket_hit_or_missed_gives_the_root() {
+        let cases = cases();
+        let whole: Vec<f64> = cases.iter().map(|(f, a, b)| brent(f, *a, *b)).collect();
+        let is_root = |f: &dyn Fn(f64) -> f64, x: f64| {
+            let t = 4.0 * f64::EPSILON * x.abs() + 2.0 * f64::MIN_POSITIVE;
+            let (below, at, above) = (f(x - t), f(x), f(x + t));
+            at == 0.0 || (below < 0.0) != (above < 0.0)
+        };
+        for (i, pair) in cases.chunks(2).enumerate() {
+            let [(f1, a1, b1), (f2, a2, b2)] = pair else {
+                continue;
+            };
+            let (w1, w2) = (whole[2 * i], whole[2 * i + 1]);
+            assert!(is_root(f1, w1) && is_root(f2, w2));
+            // Around the root, left of it, right of it (each inside the bracket).
+            let expected = |w: f64, a: f64, b: f64| {
+                [
+                    (w * 0.99, (w * 1.01).min(b)),
+                    (a + (w - a) * 0.2, a + (w - a) * 0.6),
+                    (w + (b - w) * 0.3, w + (b - w) * 0.7),
+                ]
+            };
+            for (e1, e2) in expected(w1, *a1, *b1)
+                .into_iter()
+                .zip(expected(w2, *a2, *b2))
+            {
+                let (r1, r2) = brent_pair(
+                    |x, y| (x.map_or(f64::NAN, f1), y.map_or(f64::NAN, f2)),
+                    Start::within(*a1, *b1).expecting(e1.0, e1.1),
+                    Start::within(*a2, *b2).expecting(e2.0, e2.1),
+                );
+                assert!(
+                    is_root(f1, r1),
+                    "{r1:e} (whole bracket: {w1:e}) from {e1:?}"
+                );
+                assert!(
+                    is_root(f2, r2),
+                    "{r2:e} (whole bracket: {w2:e}) from {e2:?}"
+                );
+                assert!((r1 - w1).abs() <= 1e-9 * w1 && (r2 - w2).abs() <= 1e-9 * w2);
+            }
         }
     }
 
