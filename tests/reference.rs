@@ -214,6 +214,15 @@ fn anytime_without_replacement_matches_mpmath() {
     }
 }
 
+/// The same sequence at populations up to 10⁹, each end found by the same halving with
+/// every ratio from mpmath at 60 digits (`make_wor_large.py`).
+#[test]
+fn anytime_without_replacement_matches_mpmath_at_large_populations() {
+    for c in fixture("anytime_wor_large.json") {
+        assert_counts_match(&c, Method::Anytime);
+    }
+}
+
 /// The exact worst-case binomial margin, computed independently with scipy.stats.binom.
 #[test]
 fn worst_case_binomial_margin_matches_scipy() {

@@ -21,17 +21,12 @@ pub fn ln_gamma(x: f64) -> f64 {
     statrs::function::gamma::ln_gamma(x)
 }
 
-/// `ln B(a, b)` for `a, b > 0`.
-pub fn ln_beta(a: f64, b: f64) -> f64 {
-    ln_gamma(a) + ln_gamma(b) - ln_gamma(a + b)
-}
-
 /// Stirling's error `ln(n!) − ln(√(2πn) (n/e)ⁿ)`, `n ≥ 0` whole.
 ///
 /// Values for n ≤ 15 were computed with mpmath 1.3.0 at 40 digits (`loggamma(n+1) −
 /// (n+½)ln n + n − ln √(2π)`); above that the asymptotic series is accurate to the last
 /// bit (the same cut-offs as Loader 2000).
-fn stirlerr(n: u64) -> f64 {
+pub(crate) fn stirlerr(n: u64) -> f64 {
     const SMALL: [f64; 16] = [
         0.0,
         0.081_061_466_795_327_26,
@@ -481,11 +476,6 @@ pub fn ln_hyper_lower(x: u64, n: u64, marked: u64, total: u64) -> f64 {
         return 0.0;
     }
     ln_hyper_upper(n - x, n, total - marked, total)
-}
-
-/// `ln` of the falling factorial `x (x − 1) … (x − j + 1)`, `j ≤ x`.
-pub fn ln_falling(x: f64, j: f64) -> f64 {
-    ln_gamma(x + 1.0) - ln_gamma(x - j + 1.0)
 }
 
 #[cfg(test)]
