@@ -51,6 +51,18 @@ def ln_ratio(s, n, M, N, k):
     return mix - draws
 
 
+def write(name, source, cases):
+    doc = {
+        "source": source,
+        "versions": {"python": platform.python_version(), "mpmath": mpmath.__version__},
+        "cases": cases,
+    }
+    path = os.path.join(HERE, name)
+    with open(path, "w") as out:
+        out.write(json.dumps(doc, indent=1, allow_nan=False) + "\n")
+    print(f"wrote {path}: {len(cases)} cases")
+
+
 def lower_count(s, n, N, k, level):
     if s == 0:
         return 0
@@ -85,23 +97,15 @@ def main():
                       "delta": d, "tune_for": t, "k": float(k),
                       "lower": m_lower / N, "upper": m_upper / N,
                       "m_lower": m_lower, "m_upper": m_upper})
-    doc = {
-        "source": (
-            "Without-replacement prior-posterior-ratio sequence (Waudby-Smith & Ramdas 2020) "
-            "with a beta-binomial prior, as in anytime_wor_intervals.json, at populations "
-            "from 10^3 to 10^9: each end by halving over [S, min(floor((N+1)S/n), N-(n-S))] "
-            "for the smallest M with ln R(M) < ln(1/delta) (the upper end the same on the "
-            "failures), every ln R by mpmath.loggamma at 60 digits. Seeded draws "
-            "(random.Random(20261202)): N log-uniform, n up to min(N, 10^7), S none, all or "
-            "uniform, confidence 0.90/0.95/0.99, tune_for n, 500 or 20,000."
-        ),
-        "versions": {"python": platform.python_version(), "mpmath": mpmath.__version__},
-        "cases": cases,
-    }
-    path = os.path.join(HERE, "anytime_wor_large.json")
-    with open(path, "w") as out:
-        out.write(json.dumps(doc, indent=1, allow_nan=False) + "\n")
-    print(f"wrote {path}: {len(cases)} cases")
+    write("anytime_wor_large.json", (
+        "Without-replacement prior-posterior-ratio sequence (Waudby-Smith & Ramdas 2020) "
+        "with a beta-binomial prior, as in anytime_wor_intervals.json, at populations "
+        "from 10^3 to 10^9: each end by halving over [S, min(floor((N+1)S/n), N-(n-S))] "
+        "for the smallest M with ln R(M) < ln(1/delta) (the upper end the same on the "
+        "failures), every ln R by mpmath.loggamma at 60 digits. Seeded draws "
+        "(random.Random(20261202)): N log-uniform, n up to min(N, 10^7), S none, all or "
+        "uniform, confidence 0.90/0.95/0.99, tune_for n, 500 or 20,000."
+    ), cases)
 
 
 def ratios():
@@ -119,19 +123,11 @@ def ratios():
         v = ln_ratio(s, n, M, N, mpmath.mpf(k))
         cases.append({"successes": s, "n": n, "m": M, "population": N, "k": k,
                       "ln_ratio": float(v)})
-    doc = {
-        "source": (
-            "ln R(M) of the without-replacement sequence, R as in anytime_wor_large.json, "
-            "by mpmath.loggamma at 60 digits, k taken exactly from the double given. Seeded "
-            "draws (random.Random(1973)); M = 0 and M = N (where R is 1 by definition) left out."
-        ),
-        "versions": {"python": platform.python_version(), "mpmath": mpmath.__version__},
-        "cases": cases,
-    }
-    path = os.path.join(HERE, "wor_ratios.json")
-    with open(path, "w") as out:
-        out.write(json.dumps(doc, indent=1, allow_nan=False) + "\n")
-    print(f"wrote {path}: {len(cases)} cases")
+    write("wor_ratios.json", (
+        "ln R(M) of the without-replacement sequence, R as in anytime_wor_large.json, "
+        "by mpmath.loggamma at 60 digits, k taken exactly from the double given. Seeded "
+        "draws (random.Random(1973)); M = 0 and M = N (where R is 1 by definition) left out."
+    ), cases)
 
 
 if __name__ == "__main__":
