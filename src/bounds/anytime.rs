@@ -10,8 +10,11 @@
 //! a beta-binomial prior on the population count, centred like the mixture above.
 
 use super::exact::first_true;
-use super::roots::{Start, brent_from};
+use super::roots::{Start, brent, brent_from};
 use super::special::{ln_gamma, stirlerr};
+
+/// `½ ln(2π)`.
+const HALF_LN_2PI: f64 = 0.918_938_533_204_672_8;
 
 /// The mixture's prior strength `k` for a planned size `t`:
 /// `max(t / (2L + ln(1 + 2L)) − 1, 10⁻³)`, `L = ln(1/δ)`.
@@ -72,7 +75,6 @@ impl Fixed {
 /// asymptotic series from x = 15 (its first omitted term is below 3e-16 there), the
 /// definition itself below.
 fn stirling_error(x: f64) -> f64 {
-    const HALF_LN_2PI: f64 = 0.918_938_533_204_672_8;
     if x >= 15.0 {
         let x2 = x * x;
         (1.0 / 12.0
@@ -85,8 +87,8 @@ fn stirling_error(x: f64) -> f64 {
 
 /// The lower end of `{p : M_n(p) < 1/δ}` below p̂ = s/n (0 when the set reaches 0):
 /// Brent's method from a narrow bracket around [`mixture_guess`], or from the whole
-/// of `[10⁻³⁰⁰, p̂]` when that bracket misses (7 values of the mixture at B3's counts
-/// instead of about 17).
+/// of `[10⁻³⁰⁰, p̂]` when that bracket misses (8 values of the mixture a search at
+/// B3's counts instead of about 17).
 fn mixture_lower(s: f64, n: f64, k: f64, delta: f64) -> f64 {
     let level = (1.0 / delta).ln();
     let p_hat = s / n;
@@ -95,6 +97,13 @@ fn mixture_lower(s: f64, n: f64, k: f64, delta: f64) -> f64 {
     let floor = 1e-300;
     if p_hat <= floor || gap(floor) <= 0.0 {
         return 0.0;
+    }
+    // An end far below p̂ (a response or two, all successes, under a strong prior) lies
+    // where ln M falls with ln p by as little as 0.006: over p, Brent's method would
+    // need more than its 400 steps to halve its way down there; over ln p it does not.
+    let tiny = p_hat * TINY;
+    if gap(tiny) <= 0.0 {
+        return brent(|x| gap(x.exp()), floor.ln(), tiny.ln()).exp();
     }
     let start = Start::within(floor, p_hat);
     let start = match mixture_guess(s, n, k, level) {
@@ -106,6 +115,9 @@ fn mixture_lower(s: f64, n: f64, k: f64, delta: f64) -> f64 {
     };
     brent_from(gap, start)
 }
+
+/// Below this share of p̂ [`mixture_lower`] searches over ln p.
+const TINY: f64 = 1e-9;
 
 /// Half the width of the bracket [`mixture_lower`] tries first, as a share of the
 /// guessed end's distance from p̂. On a seeded sample of 20,000 (n up to 10⁷, p̂
@@ -176,7 +188,6 @@ fn ln_ratio(s: u64, n: u64, m: u64, total: u64, k: f64, fixed: &Drawn) -> f64 {
 /// `ln (x)_j − j ln x + j` for whole `j ≤ x`, `x ≥ 1`: `(x − j + ½) ln(x/(x − j)) +
 /// ω(x) − ω(x − j)`, and `½ ln(2πx) + ω(x)` when `j = x` (`ln x!` itself).
 fn falling_rest(x: u64, j: u64) -> f64 {
-    const HALF_LN_2PI: f64 = 0.918_938_533_204_672_8;
     if j == 0 {
         return 0.0;
     }
@@ -310,10 +321,15 @@ mod tests {
 
     /// Seeded counts (whole and fractional, as weights give them) from 1 to 10⁷, every
     /// share, levels from 90 % to 1 − 10⁻⁶ and the prior strengths that planned sizes
-    /// from 10 to 20,000 give: the lower end found from a guess is the one found from the
-    /// whole bracket to within a relative 1e-13. Both stop within a few ulps of where
-    /// the computed mixture crosses the level; where the prior outweighs the responses
-    /// (k ≫ n) its rounding moves that crossing, by up to 4.3e-14 on 20,000 draws.
+    /// from 10 to 20,000 give. Every lower end is where the mixture crosses the level:
+    /// above it a relative 10⁻⁶ further out, below it 10⁻⁶ further in. And where the
+    /// end is above 10⁻⁹ p̂ (where the search over p reaches it), it is the one found
+    /// from the whole bracket to within a relative 1e-13: both stop within a few ulps
+    /// of the computed crossing, and where the prior outweighs the responses (k ≫ n)
+    /// the mixture's rounding moves that crossing, by up to 4.3e-14 on 20,000 draws.
+    /// (Below 10⁻⁹ p̂ the old search over p could stop short: for S = n = 1.006,
+    /// k = 627, δ = 0.05 it gave 1.3e-163, where the set still goes on below; the end
+    /// is 1.06e-219.)
     #[test]
     fn the_lower_end_from_a_guess_is_as_before() {
         let mut rng = ChaCha8Rng::seed_from_u64(1971);
@@ -321,15 +337,39 @@ mod tests {
             let (s, n) = counts(&mut rng);
             let delta = [0.05, 0.01, 0.1, 1e-6][rng.random_range(0..4)];
             let k = prior_strength(rng.random_range(10.0..20_000.0), delta);
-            let (got, want) = (
-                mixture_lower(s, n, k, delta),
-                mixture_lower_as_before(s, n, k, delta),
-            );
-            assert!(
-                (got - want).abs() <= 1e-13 * want,
-                "S = {s}, n = {n}, k = {k}, δ = {delta}: {got:e} against {want:e}"
-            );
+            let got = mixture_lower(s, n, k, delta);
+            let fixed = Fixed::new(n, k);
+            let gap = |p: f64| ln_mixture(s, n, k, p, &fixed) - (1.0 / delta).ln();
+            let case = format!("S = {s}, n = {n}, k = {k}, δ = {delta}: {got:e}");
+            if got > 0.0 {
+                assert!(gap(got * (1.0 - 1e-6)) > 0.0, "{case}");
+                assert!(gap(got * (1.0 + 1e-6)) < 0.0, "{case}");
+            }
+            let want = mixture_lower_as_before(s, n, k, delta);
+            if want >= TINY * s / n || want == 0.0 {
+                assert!(
+                    (got - want).abs() <= 1e-13 * want,
+                    "{case} against {want:e}"
+                );
+            }
         }
+        assert!(gap_is_checked_at_a_tiny_end());
+    }
+
+    /// The case the old search got wrong (see above): the end found now is a crossing,
+    /// and just below the old one the mixture is still under the level.
+    fn gap_is_checked_at_a_tiny_end() -> bool {
+        let (s, k, delta) = (1.00602529008698, 626.8959402498208, 0.05);
+        let (got, old) = (
+            mixture_lower(s, s, k, delta),
+            mixture_lower_as_before(s, s, k, delta),
+        );
+        let fixed = Fixed::new(s, k);
+        let gap = |p: f64| ln_mixture(s, s, k, p, &fixed) - (1.0 / delta).ln();
+        got > 0.0
+            && gap(got * (1.0 - 1e-6)) > 0.0
+            && gap(got * (1.0 + 1e-6)) < 0.0
+            && gap(old * (1.0 - 1e-6)) < 0.0
     }
 
     /// From 1,000 responses on, with p̂ from 0.1 to 0.9, the guessed end is inside the

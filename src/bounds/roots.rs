@@ -29,13 +29,13 @@ impl Start {
         }
     }
 
-    /// The root is in `[a, b]` and expected in `[lo, hi]`; an expected bracket that is
-    /// not inside `[a, b]`, or is empty, is ignored.
+    /// The root is in `[a, b]` and expected in `[lo, hi]`, which is cut to `[a, b]`
+    /// (and ignored if nothing, or only a point, is left).
     pub fn expecting(self, lo: f64, hi: f64) -> Start {
         let (a, b) = self.bracket;
-        let inside = a <= lo && lo < hi && hi <= b;
+        let (lo, hi) = (lo.max(a), hi.min(b));
         Start {
-            expected: inside.then_some((lo, hi)),
+            expected: (lo < hi).then_some((lo, hi)),
             ..self
         }
     }
