@@ -316,7 +316,7 @@ mod tests {
         if s / n <= 1e-300 || gap(1e-300) <= 0.0 {
             return 0.0;
         }
-        super::super::roots::brent(gap, 1e-300, s / n)
+        brent(gap, 1e-300, s / n)
     }
 
     /// Seeded counts (whole and fractional, as weights give them) from 1 to 10⁷, every
