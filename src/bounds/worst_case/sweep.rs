@@ -545,27 +545,31 @@ impl Side {
         loop {
             let mf = m as f64;
             let (rl, ru) = (rho_lower(mf), rho_upper(mf));
-            // What is left of each tail from term m on (nothing once the tail ends).
-            let rest_lower = if mf > tf {
-                0.0
-            } else if rl < 1.0 {
-                term_lower / (1.0 - rl)
-            } else {
-                f64::INFINITY
-            };
-            let rest_upper = if cut + mf > nf {
-                0.0
-            } else if ru < 1.0 {
-                term_upper / (1.0 - ru)
-            } else {
-                f64::INFINITY
-            };
-            let bound = (scale_lower * (sum_lower + rest_lower)
-                + scale_upper * (sum_upper + rest_upper))
-                * (1.0 + 1e-10);
-            let settled = rest_lower <= 1e-5 * sum_lower && rest_upper <= 1e-5 * sum_upper;
-            if m >= terms || (m.is_multiple_of(8) && (bound <= limit || settled)) {
-                return (upper_falls(mf) && bound.is_finite()).then_some(bound);
+            // The bound is looked at every 8 terms (and at the last one): between looks
+            // only the sums move.
+            if m >= terms || m.is_multiple_of(8) {
+                // What is left of each tail from term m on (nothing once the tail ends).
+                let rest_lower = if mf > tf {
+                    0.0
+                } else if rl < 1.0 {
+                    term_lower / (1.0 - rl)
+                } else {
+                    f64::INFINITY
+                };
+                let rest_upper = if cut + mf > nf {
+                    0.0
+                } else if ru < 1.0 {
+                    term_upper / (1.0 - ru)
+                } else {
+                    f64::INFINITY
+                };
+                let bound = (scale_lower * (sum_lower + rest_lower)
+                    + scale_upper * (sum_upper + rest_upper))
+                    * (1.0 + 1e-10);
+                let settled = rest_lower <= 1e-5 * sum_lower && rest_upper <= 1e-5 * sum_upper;
+                if m >= terms || bound <= limit || settled {
+                    return (upper_falls(mf) && bound.is_finite()).then_some(bound);
+                }
             }
             if mf <= tf {
                 sum_lower += term_lower;
@@ -627,7 +631,7 @@ struct Stop {
 impl Stop {
     fn new() -> Stop {
         Stop {
-            slack: 1.004,
+            slack: 1.001,
             next_try: u64::MAX,
         }
     }
