@@ -48,7 +48,7 @@ const BLOCK_MIN: usize = 24;
 const NODES: usize = 12;
 
 /// The stepping factors at one pivot (see [`Side::factors`]).
-type Factors = [f64; 5];
+type Factors = [f64; 4];
 
 /// A polynomial fit of the factors over pivot positions `[lo, hi]`: the Chebyshev
 /// interpolant through [`NODES`] points, held as a polynomial in
@@ -57,8 +57,8 @@ type Factors = [f64; 5];
 struct Fit {
     centre: f64,
     inv_half: f64,
-    /// `powers[k][f]`: the coefficient of `x^k` for factor f (a sixth lane pads).
-    powers: [[f64; 6]; NODES],
+    /// `powers[k][f]`: the coefficient of `x^k` for factor f.
+    powers: [[f64; 4]; NODES],
 }
 
 impl Fit {
@@ -68,7 +68,7 @@ impl Fit {
     fn through(lo: f64, hi: f64, at: impl Fn(f64) -> Option<Factors>) -> Option<Fit> {
         let cosines = chebyshev_cosines();
         let (centre, half) = (0.5 * (lo + hi), 0.5 * (hi - lo));
-        let mut chebyshev = [[0.0; 5]; NODES];
+        let mut chebyshev = [[0.0; 4]; NODES];
         for row in cosines {
             // row[m] = cos(m θⱼ); the node sits at cos θⱼ.
             let value = at(centre + half * row[1])?;
@@ -83,7 +83,7 @@ impl Fit {
             let factor = if m == 0 { 0.5 * scale } else { scale };
             c.iter_mut().for_each(|c| *c *= factor);
         }
-        let good = (0..5).all(|f| {
+        let good = (0..4).all(|f| {
             let tail = chebyshev[NODES - 1][f].abs() + chebyshev[NODES - 2][f].abs();
             tail <= 1e-15 * chebyshev[0][f].abs().max(1.0)
         });
@@ -91,7 +91,7 @@ impl Fit {
             return None;
         }
         // Σ cₘ Tₘ(x) as a polynomial: T₀ = 1, T₁ = x, T_{m+1} = 2x Tₘ − T_{m−1}.
-        let mut powers = [[0.0; 6]; NODES];
+        let mut powers = [[0.0; 4]; NODES];
         let (mut older, mut old) = ([0.0; NODES], [0.0; NODES]);
         older[0] = 1.0;
         old[1] = 1.0;
@@ -125,13 +125,13 @@ impl Fit {
     /// The factors at pivot position f.
     fn at(&self, f: f64) -> Factors {
         let x = (f - self.centre) * self.inv_half;
-        let mut sum = [0.0; 6];
+        let mut sum = [0.0; 4];
         for p in self.powers.iter().rev() {
             for (s, &c) in sum.iter_mut().zip(p) {
                 *s = *s * x + c;
             }
         }
-        [sum[0], sum[1], sum[2], sum[3], sum[4]]
+        sum
     }
 }
 
@@ -316,8 +316,8 @@ impl Side {
 
     /// The stepping factors at pivot position f (a real number, for the fits):
     /// the tails grow by `point probability × grow` and the point probabilities are
-    /// multiplied by `next`, from pivot f to f − 1; with the ratio of `b(f + 1)` to
-    /// `b(f)`. `None` where the series does not apply.
+    /// multiplied by `next`, from pivot f to f − 1. `None` where the series does not
+    /// apply.
     fn factors(&self, f: f64) -> Option<Factors> {
         let (nf, a, sf) = (self.nf(), self.a, self.s as f64);
         let (pa, qa) = (f + a, nf - f - a); // np, nq
@@ -347,7 +347,6 @@ impl Side {
             f / (nf - f + 1.0) * step * e_low,
             1.0 - t * inv_p * j_up,
             t / (nf - t + 1.0) * step * e_up,
-            (nf - f) / (f + 1.0) * pa * inv_q,
         ])
     }
 
@@ -361,6 +360,7 @@ impl Side {
     /// stepped with each pivot's own factors.
     pub fn walk(&self, start: u64, mut visit: impl FnMut(u64, &Values) -> bool) -> bool {
         let n = self.n;
+        let nf = n as f64;
         let (a, s) = (self.a, self.s);
         if start + s > n || a.is_nan() || a <= 0.0 {
             return false;
@@ -415,7 +415,11 @@ impl Side {
                         None => return false,
                     },
                 };
-                let [grow_lower, next_lower, grow_upper, next_upper, up_ratio] = factors;
+                let [grow_lower, next_lower, grow_upper, next_upper] = factors;
+                // b(i + 1)/b(i) = ((n − i)/(i + 1)) (p/q), exactly (not fitted: only the
+                // right side uses it).
+                let up_ratio =
+                    (nf - position) * (position + a) / ((position + 1.0) * (nf - position - a));
                 let values = Values {
                     lower,
                     upper,
