@@ -661,7 +661,8 @@ fn walk_out(
     extra: impl Fn(&Values) -> f64,
     rest_below: impl Fn(u64) -> bool,
 ) -> Option<Vec<(f64, f64, f64)>> {
-    let mut values = Vec::with_capacity(256);
+    // About 400 pivots a side at B3's counts: room for them without growing.
+    let mut values = Vec::with_capacity(1024);
     let mut stop = Stop::new();
     let mut covered = false;
     let walked = side.walk(start, |i, v| {
