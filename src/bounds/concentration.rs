@@ -28,9 +28,10 @@ pub fn serfling_factor(n: u64, total: u64) -> f64 {
 }
 
 /// Relative entropy `KL(a ‖ p)` between Bernoulli(a) and Bernoulli(p). `ln(1 − a)`
-/// is taken as `ln_1p(−a)`: `(1 − a).ln()` rounded `1 − a` first, which for a near 0
-/// put an error of ε (not ε a) into the divergence; at n = 2.4·10⁷ and p̂ = 3·10⁻⁸
-/// that moved a Chernoff end by a relative 10⁻⁹ (against mpmath at 60 digits).
+/// is taken as `ln_1p(−a)`: as `(1 − a).ln()` it rounded `1 − a` first, which for a
+/// near 0 put an error of ε (not ε a) into the divergence; at n = 2.4·10⁷ and
+/// p̂ = 3·10⁻⁸ that moved a Chernoff end by a relative 10⁻⁹ (against mpmath at 60
+/// digits).
 pub fn kl(a: f64, p: f64) -> f64 {
     let mut v = 0.0;
     if a > 0.0 {
@@ -81,9 +82,10 @@ pub fn chernoff(p_hat: f64, n: f64, delta: f64) -> (f64, f64) {
 /// convex), so after the first step every step lands on the side where g ≥ 0 and the
 /// end is approached from there, however far out it lies (a step over p could leave
 /// [0, 1]). It starts from the root of `(p̂ − p)² = (2L/n) p(1 − p)` on the end's side
-/// (where the second-order expansion of the divergence puts it), or where that is 0,
-/// from `p̂ e^(−L/(np̂) − 1)`, where the divergence's first-order form puts a lower end
-/// far below p̂ (and its mirror for the upper end). A search stops once its step in p
+/// (where the second-order expansion of the divergence puts it), or where that root
+/// rounds to 0 (to 1 for the upper end), from `p̂ e^(−L/(np̂) − 1)`, where the
+/// divergence's first-order form puts a lower end far below p̂ (and its mirror for the
+/// upper end). A search stops once its step in p
 /// is below 10⁻¹¹ of the end's distance from p̂ or from its edge of [0, 1], whichever
 /// is less, after taking it (the next would be about that squared, over the distance:
 /// far below an ulp), or below two ulps of the end, or where g is within its own
