@@ -2,6 +2,7 @@
 //! Bardenet & Maillard (2015) form for sampling without replacement, the Chernoff
 //! relative-entropy bound, and the empirical Bernstein bound of Maurer & Pontil (2009).
 
+use super::normal::wilson_lower;
 use super::roots::brent;
 
 /// Chebyshev with the worst-case variance ¼: `P(|p̂ − p| ≥ ε) ≤ 1/(4nε²)`, so
@@ -82,10 +83,10 @@ pub fn chernoff(p_hat: f64, n: f64, delta: f64) -> (f64, f64) {
 /// convex), so after the first step every step lands on the side where g ≥ 0 and the
 /// end is approached from there, however far out it lies (a step over p could leave
 /// [0, 1]). It starts from the root of `(p̂ − p)² = (2L/n) p(1 − p)` on the end's side
-/// (where the second-order expansion of the divergence puts it), or where that root
-/// rounds to 0 (to 1 for the upper end), from `p̂ e^(−L/(np̂) − 1)`, where the
-/// divergence's first-order form puts a lower end far below p̂ (and its mirror for the
-/// upper end). A search stops once its step in p
+/// (where the second-order expansion of the divergence puts it: Wilson's end with
+/// z² = 2L), or where that is not inside (0 or 1 as rounded), from
+/// `p̂ e^(−L/(np̂) − 1)`, where the divergence's first-order form puts a lower end far
+/// below p̂ (and its mirror for the upper end). A search stops once its step in p
 /// is below 10⁻¹¹ of the end's distance from p̂ or from its edge of [0, 1], whichever
 /// is less, after taking it (the next would be about that squared, over the distance:
 /// far below an ulp), or below two ulps of the end, or where g is within its own
@@ -93,10 +94,13 @@ pub fn chernoff(p_hat: f64, n: f64, delta: f64) -> (f64, f64) {
 /// `None` when a step leaves the end's side of p̂, [`CHERNOFF_STEPS`] do not settle,
 /// or the end is subnormal.
 fn chernoff_end(p_hat: f64, n: f64, level: f64, upper: bool) -> Option<f64> {
-    let c = 2.0 * level / n;
-    let b = 2.0 * p_hat + c;
-    let root = (b * b - 4.0 * (1.0 + c) * p_hat * p_hat).sqrt();
-    let guess = if upper { b + root } else { b - root } / (2.0 * (1.0 + c));
+    // Wilson's end with z² = 2L.
+    let z = (2.0 * level).sqrt();
+    let guess = if upper {
+        1.0 - wilson_lower(1.0 - p_hat, p_hat, n, z)
+    } else {
+        wilson_lower(p_hat, 1.0 - p_hat, n, z)
+    };
     // u, the end's distance from its own edge of [0, 1] on a log scale, and back.
     let (to_u, from_u): (Map, Map) = if upper {
         (|p| (-p).ln_1p(), |u| -u.exp_m1())

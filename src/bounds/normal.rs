@@ -18,7 +18,9 @@ pub fn wilson(p: f64, q: f64, n: f64, delta: f64, fpc: f64) -> (f64, f64) {
     (wilson_lower(p, q, n, z), 1.0 - wilson_lower(q, p, n, z))
 }
 
-fn wilson_lower(p: f64, q: f64, n: f64, z: f64) -> f64 {
+/// The lower root of `(p − x)² = (z²/n) x(1 − x)` (Wilson's lower end), as the
+/// product of the roots over the upper one, which does not cancel at small p.
+pub(super) fn wilson_lower(p: f64, q: f64, n: f64, z: f64) -> f64 {
     if p <= 0.0 {
         return 0.0;
     }
