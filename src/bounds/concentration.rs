@@ -297,6 +297,43 @@ mod tests {
         );
     }
 
+    /// Lower ends far below p̂ (weighted counts with n·p̂ well below ln(2/δ)), against
+    /// mpmath 1.3.0: the root of `n·KL(p̂ ‖ e^u) = ln(2/δ)` in u by `findroot` at 60
+    /// digits from the same doubles, rounded to doubles
+    /// (`tests/reference/chernoff_far_ends.py` prints them). Brent's method over
+    /// `[0, p̂]` gave 6.9e-127 for the last; the middle one was a relative 10⁻⁹ off
+    /// while KL rounded `1 − p̂`.
+    #[test]
+    fn far_lower_ends_match_mpmath() {
+        let cases = [
+            (
+                6.551721273973269e-9,
+                15_081_485.0,
+                2.899130945787342e-12,
+                3.700660257961618e-129,
+            ),
+            (
+                3.040911958650272e-8,
+                23_877_336.16423369,
+                1.881501027684639e-8,
+                9.868263708297706e-20,
+            ),
+            (
+                1.7904941415827086e-6,
+                4_396.0,
+                0.18045181841335398,
+                1.2448672456039702e-139,
+            ),
+        ];
+        for (p_hat, n, delta, want) in cases {
+            let (lower, _) = chernoff(p_hat, n, delta);
+            assert!(
+                ((lower - want) / want).abs() <= 1e-12,
+                "p̂ = {p_hat}, n = {n}, δ = {delta}: {lower:e} against {want:e}"
+            );
+        }
+    }
+
     /// With n from 1,000 to 20,000, p̂ from 0.2 to 0.8 and usual levels (B3's kind of
     /// counts), Newton's method settles every time.
     #[test]
