@@ -301,8 +301,9 @@ mod tests {
     /// mpmath 1.3.0: the root of `n·KL(p̂ ‖ e^u) = ln(2/δ)` in u by `findroot` at 60
     /// digits from the same doubles, rounded to doubles
     /// (`tests/reference/chernoff_far_ends.py` prints them). Brent's method over
-    /// `[0, p̂]` gave 6.9e-127 for the last; the middle one was a relative 10⁻⁹ off
-    /// while KL rounded `1 − p̂`.
+    /// `[0, p̂]` gave 2.5e-129 for the first and 6.9e-127 for the last; the middle
+    /// one was a relative 10⁻⁹ off while KL rounded `1 − p̂`. Main before Newton's
+    /// method failed all three.
     #[test]
     fn far_lower_ends_match_mpmath() {
         let cases = [
