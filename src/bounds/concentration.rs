@@ -34,14 +34,27 @@ pub fn serfling_factor(n: u64, total: u64) -> f64 {
 /// p̂ = 3·10⁻⁸ that moved a Chernoff end by a relative 10⁻⁹ (against mpmath at 60
 /// digits).
 pub fn kl(a: f64, p: f64) -> f64 {
-    let mut v = 0.0;
+    kl_with_size(a, p).0
+}
+
+/// [`kl`] and the size of the terms it is summed from,
+/// `a(1 + |ln(a/p)|) + (1 − a)(|ln(1 − a)| + |ln(1 − p)|)`, from the same logarithms:
+/// the divergence's rounding is about ε times that (the terms cancel to KL, and the
+/// quotient a/p adds ε a).
+#[inline]
+fn kl_with_size(a: f64, p: f64) -> (f64, f64) {
+    let (mut v, mut size) = (0.0, 0.0);
     if a > 0.0 {
-        v += a * (a / p).ln();
+        let ratio = (a / p).ln();
+        v += a * ratio;
+        size += a * (1.0 + ratio.abs());
     }
     if a < 1.0 {
-        v += (1.0 - a) * ((-a).ln_1p() - (-p).ln_1p());
+        let (rest_a, rest_p) = ((-a).ln_1p(), (-p).ln_1p());
+        v += (1.0 - a) * (rest_a - rest_p);
+        size += (1.0 - a) * (rest_a.abs() + rest_p.abs());
     }
-    v
+    (v, size)
 }
 
 /// The Chernoff set `{p : n·KL(p̂ ‖ p) ≤ ln(2/δ)}` (closed forms at p̂ = 0 and
@@ -126,11 +139,10 @@ fn chernoff_end(p_hat: f64, n: f64, level: f64, upper: bool) -> Option<f64> {
         if !inside(p) {
             return None;
         }
-        let value = n * kl(p_hat, p) - level;
+        let (divergence, size) = kl_with_size(p_hat, p);
+        let value = n * divergence - level;
         // Where g is within its own rounding of 0, p is as good an end as any.
-        let terms = p_hat * (1.0 + (p_hat / p).ln().abs())
-            + (1.0 - p_hat) * ((-p_hat).ln_1p().abs() + (-p).ln_1p().abs());
-        if value.abs() <= 4.0 * f64::EPSILON * (n * terms + level) {
+        if value.abs() <= 4.0 * f64::EPSILON * (n * size + level) {
             return (p >= f64::MIN_POSITIVE).then_some(p);
         }
         // dg/du: g'(p) times dp/du, p for the lower end and −(1 − p) for the upper.
@@ -190,12 +202,11 @@ mod tests {
     }
 
     /// The band around an end where the computed `g = n·KL(p̂ ‖ p) − L` crosses 0:
-    /// it carries rounding of about ε times the size of the divergence's terms (they
-    /// cancel to KL; the quotient p̂/p adds ε p̂), so it may cross anywhere within n
-    /// times that over g'; and some ulps.
+    /// it carries rounding of about ε times the size of the divergence's terms
+    /// ([`kl_with_size`]), so it may cross anywhere within n times that over g'; and
+    /// some ulps.
     fn band(p_hat: f64, n: f64, end: f64) -> f64 {
-        let terms = p_hat * (1.0 + (p_hat / end).ln().abs())
-            + (1.0 - p_hat) * ((-p_hat).ln_1p().abs() + (-end).ln_1p().abs());
+        let terms = kl_with_size(p_hat, end).1;
         let slope = n * (end - p_hat).abs() / (end * (1.0 - end));
         8.0 * f64::EPSILON * n * terms / slope + 64.0 * f64::EPSILON * end
     }
