@@ -6,17 +6,22 @@
 #   bash benches/batch.sh                 # 1 M and 10 M rows, 5 runs each
 #   ROWS="1000000" RUNS=3 bash benches/batch.sh
 #   BIN=/path/to/other/closeout bash benches/batch.sh   # time another build
+#   GAP=0 bash benches/batch.sh           # runs back to back (default: 3 s apart)
 #
 # Needs GNU time (/usr/bin/time; Debian package `time`). The files are the demo's
 # invented study (`closeout demo --write N`: about 86 bytes a row, 10 columns, 24
 # cells, 3 measures, ids and times, 0.1 % malformed rows and 0.1 % repeated ids),
 # written once under target/bench-data/demo-N/ and kept there, with a copy of its
 # study file without the id column; each file is read once before timing so the
-# figures are for a warm page cache.
+# figures are for a warm page cache. Each run starts GAP seconds after the one before,
+# as a supervisor re-opens the dashboard: on the project's virtual machines a run
+# started at once is given memory the run before freed, which is quicker to give
+# than memory freed seconds before (see DEVELOPERS.md, "Reading fast").
 set -euo pipefail
 cd "$(dirname "$0")/.."
 ROWS=${ROWS:-"1000000 10000000"}
 RUNS=${RUNS:-5}
+GAP=${GAP:-3}
 DATA=${DATA:-target/bench-data}
 TIME=/usr/bin/time
 [ -x "$TIME" ] || { echo "needs GNU time: apt-get install time" >&2; exit 2; }
@@ -41,6 +46,7 @@ time_runs() {
   local secs=() rss=()
   for _ in $(seq "$RUNS"); do
     local out
+    sleep "$GAP"
     $TIME -o "$DATA/time.out" -f "%e %M" "$@" >/dev/null 2>"$DATA/stderr.out" \
       || { echo "failed: $* ($(head -c 300 "$DATA/stderr.out"))" >&2; exit 1; }
     out=$(tail -1 "$DATA/time.out")

@@ -27,12 +27,16 @@
 //! vector's memory is), each page's first lookup maps the shared zero page and its
 //! first insert copies it, interrupting the other cores to drop the old mapping:
 //! `perf stat` counted 12,000 page faults and as many flushes of the address cache
-//! for the 1 M-row benchmark, 35,000 for the 10 M-row one. A map of 2 MiB or more is
-//! also offered to the kernel for huge pages (`MADV_HUGEPAGE`): a lookup lands on a
-//! random slot, and with 4 KiB pages nearly every one also misses the address
-//! translation cache, which costs more than the memory access itself on a virtual
-//! machine. Both are advice: where the kernel declines, the pages are ordinary and
-//! only slower.
+//! for the 1 M-row benchmark, 35,000 for the 10 M-row one. Taking the memory is
+//! advice: where the kernel declines, the pages come with the first inserts, only
+//! slower.
+//!
+//! The maps are not offered for huge pages any more (`MADV_HUGEPAGE` until issue 7's
+//! eighth round). On the project's virtual machines, huge pages made of memory
+//! freed a few seconds before took 0.43–0.58 s of system time to give for the 213 MB of the 10 M-row benchmark's
+//! set, against 0.09–0.13 s for the same memory in 4 KiB pages, while the address
+//! translation misses that huge pages save cost less than that (see DEVELOPERS.md,
+//! "Reading fast").
 
 use std::fmt;
 
@@ -40,9 +44,10 @@ use std::fmt;
 const SHARDS: usize = 32;
 /// Slots from which a shard is mapped on its own, its memory taken at once (64 KiB).
 const MAPPED_SLOTS: usize = 1 << 12;
-/// Slots from which a map is offered for huge pages and a reserve makes its maps on
-/// every core (2 MiB).
-const HUGE_SLOTS: usize = 1 << 17;
+/// Slots from which a reserve makes its maps on every core (2 MiB a shard).
+const SPREAD_SLOTS: usize = 1 << 17;
+/// Slots in a cache line (64 bytes).
+const LINE_SLOTS: usize = 4;
 /// The smallest shard that holds anything.
 const FIRST_CAPACITY: usize = 8;
 
@@ -61,7 +66,7 @@ struct Shard {
     len: usize,
 }
 
-/// A shard's slots: in a vector, or (when large) in memory mapped for huge pages.
+/// A shard's slots: in a vector, or (when large) in memory mapped on its own.
 /// The value 0 marks an empty slot.
 enum Slots {
     Vec(Vec<u128>),
@@ -92,10 +97,7 @@ impl Slots {
             && let Ok(map) = memmap2::MmapMut::map_anon(capacity * 16)
         {
             // Only advice (see the module notes): the map works the same if the
-            // kernel ignores either.
-            if capacity >= HUGE_SLOTS {
-                let _ = map.advise(memmap2::Advice::HugePage);
-            }
+            // kernel ignores it.
             let _ = map.advise(memmap2::Advice::PopulateWrite);
             return Slots::Mapped(map, capacity);
         }
@@ -240,7 +242,7 @@ impl IdSet {
             .collect();
         // The new slots' memory is taken (and zeroed by the kernel) on every core: a
         // large reserve is a few hundred megabytes, and the readers wait meanwhile.
-        let per_thread = if capacity >= HUGE_SLOTS { 1 } else { SHARDS };
+        let per_thread = if capacity >= SPREAD_SLOTS { 1 } else { SHARDS };
         let fresh = crate::parallel::map_costliest_first(
             &short,
             per_thread,
@@ -283,11 +285,16 @@ impl IdSet {
         self.insert_hash(id_hash(id))
     }
 
-    /// Ask for the memory of the slot where `hash`'s probe starts, ahead of
-    /// [`IdSet::insert_hash`] (a prefetch: it changes nothing but speed).
+    /// Ask for the memory of the slot where `hash`'s probe starts and of the cache
+    /// line after it, ahead of [`IdSet::insert_hash`] (a prefetch: it changes nothing
+    /// but speed). A new id's probe runs on to the first empty slot: about 7 slots
+    /// on average in a set 3/4 full (linear probing), so it usually crosses into the
+    /// next line, which was then a second miss, one after the other.
     pub(super) fn prefetch(&self, hash: u128) {
         if let Some(shard) = self.shards.get(Self::shard_of(hash)) {
-            shard.slots.prefetch(shard.home(hash));
+            let home = shard.home(hash);
+            shard.slots.prefetch(home);
+            shard.slots.prefetch(home + LINE_SLOTS);
         }
     }
 
@@ -358,8 +365,8 @@ mod tests {
             .collect()
     }
 
-    /// Room taken for millions of ids (every shard a map offered huge pages, the
-    /// maps made on every core) keeps the hashes held before, and the set then
+    /// Room taken for millions of ids (every shard a map of its own, the maps made
+    /// on every core) keeps the hashes held before, and the set then
     /// answers as one grown insert by insert.
     #[test]
     fn a_large_reserve_keeps_what_was_held() {
@@ -370,8 +377,8 @@ mod tests {
         for &h in &before {
             assert_eq!(reserved.insert_hash(h), grown.insert_hash(h));
         }
-        // Enough for every shard's map to be offered huge pages.
-        reserved.reserve(SHARDS * HUGE_SLOTS);
+        // Enough for every shard's map to be made on every core.
+        reserved.reserve(SHARDS * SPREAD_SLOTS);
         assert!(
             reserved
                 .shards
