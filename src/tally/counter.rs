@@ -25,7 +25,7 @@
 //! unexpected-value limit come out as in one pass.
 
 use std::collections::HashMap;
-use std::hash::{BuildHasherDefault, Hasher};
+use std::hash::{BuildHasherDefault, Hash, Hasher};
 use std::sync::{Arc, Mutex};
 
 use jiff::Timestamp;
@@ -311,7 +311,7 @@ pub(crate) struct Reading {
     by_raw: HashMap<Vec<u8>, (u32, Option<u32>), BuildHasherDefault<Mix>>,
     /// The same for cells of at most [`PACKED_CELLS`] columns whose values are short
     /// enough to pack: packed values → (cell, spelling).
-    by_packed: HashMap<[u128; PACKED_CELLS], (u32, Option<u32>), BuildHasherDefault<Mix>>,
+    by_packed: HashMap<PackedCell, (u32, Option<u32>), BuildHasherDefault<Mix>>,
     registry: Shared,
     raw_key: Vec<u8>,
     weights: Weights,
@@ -410,9 +410,9 @@ impl Reading {
         };
         // The cell, from its raw values: (cell, spelling). Short values of a few
         // columns are looked up packed (see `pack`), others joined.
-        let mut packed = (slots.cells.len() <= PACKED_CELLS).then_some([0u128; PACKED_CELLS]);
+        let mut packed = (slots.cells.len() <= PACKED_CELLS).then_some(PackedCell::default());
         if let Some(key) = packed.as_mut() {
-            for (word, &slot) in key.iter_mut().zip(&slots.cells) {
+            for (word, &slot) in key.0.iter_mut().zip(&slots.cells) {
                 match pack(value(slot)) {
                     Some(p) => *word = p,
                     None => {
@@ -922,6 +922,22 @@ fn usual_form(b: &[u8]) -> Option<([u8; 13], i64, i32)> {
     Some((prefix, mm * 60 + ss, nanos))
 }
 
+/// A cell's values packed (see [`pack`]): the key of [`Reading`]'s cache of cells.
+#[derive(Debug, Default, Clone, Copy, PartialEq, Eq)]
+struct PackedCell([u128; PACKED_CELLS]);
+
+impl Hash for PackedCell {
+    /// Its words folded into one, which [`Mix`] takes in one step (an array of them
+    /// is hashed as its 64 bytes and a length, nine steps).
+    fn hash<H: Hasher>(&self, state: &mut H) {
+        let folded = self.0.iter().fold(0u64, |h, &word| {
+            (h.rotate_left(23) ^ word as u64 ^ (word >> 64) as u64)
+                .wrapping_mul(0x9e37_79b9_7f4a_7c15)
+        });
+        state.write_u64(folded);
+    }
+}
+
 /// A small fast hash for the cell cache's keys (a few bytes each, not chosen by an
 /// adversary who could gain anything: a bad spread only slows the cache).
 #[derive(Default)]
@@ -944,6 +960,9 @@ impl Hasher for Mix {
                 .fold(0u64, |w, (i, &b)| w | u64::from(b) << (8 * i));
             self.eat(word);
         }
+    }
+    fn write_u64(&mut self, word: u64) {
+        self.eat(word);
     }
     fn finish(&self) -> u64 {
         self.0 ^ (self.0 >> 29)
