@@ -251,9 +251,17 @@ impl Entry {
     }
 
     /// Keep `t` as (floor second, nanoseconds from it), which [`Entry::time`] gives back.
+    #[cfg(test)]
     fn set_time(&mut self, t: Timestamp) {
-        self.second = Arrivals::second_of(t);
-        self.nanos = t.subsec_nanosecond().rem_euclid(1_000_000_000);
+        (self.second, self.nanos) = Entry::parts_of(t);
+    }
+
+    /// `t` as (floor second, nanoseconds from it, 0 or more).
+    fn parts_of(t: Timestamp) -> (i64, i32) {
+        (
+            Arrivals::second_of(t),
+            t.subsec_nanosecond().rem_euclid(1_000_000_000),
+        )
     }
 
     fn time(&self) -> Option<Timestamp> {
@@ -316,9 +324,8 @@ pub(crate) struct Reading {
     raw_key: Vec<u8>,
     weights: Weights,
     answers: Vec<Vec<(u128, Answer)>>,
-    /// The last hour prefix (`YYYY-MM-DDTHH`) and the second its hour starts at
-    /// (`None` when that is not a valid time).
-    hour: Option<([u8; 13], Option<i64>)>,
+    /// The hour of the last time in the usual form (see [`time_parts`]).
+    hour: Hour,
 }
 
 impl Reading {
@@ -406,7 +413,7 @@ impl Reading {
         };
         let time = match slots.time.map(value) {
             None | Some(b"") => None,
-            Some(raw) => Some(time_of(&mut self.hour, raw)?),
+            Some(raw) => Some(time_parts(&mut self.hour, raw)?),
         };
         // The cell, from its raw values: (cell, spelling). Short values of a few
         // columns are looked up packed (see `pack`), others joined.
@@ -480,8 +487,8 @@ impl Reading {
         if weight_index.is_none() {
             batch.weights.push(weight);
         }
-        if let Some(t) = time {
-            entry.set_time(t);
+        if let Some((second, nanos)) = time {
+            (entry.second, entry.nanos) = (second, nanos);
         }
         if let Some(raw) = slots.id.map(value).filter(|raw| !raw.is_empty()) {
             entry.id_start = batch.ids.len() as u32;
@@ -862,64 +869,108 @@ impl Weights {
     }
 }
 
-/// The time in `raw` (trimmed, not blank) as `jiff` parses it, or `None` when it is
-/// not a valid time. The usual form `YYYY-MM-DDTHH:MM:SS[.f…]Z` (hours 00–23, minutes
-/// and seconds 00–59, one to nine digits of fraction) is computed from the start of
-/// its hour, which `jiff` parses once per hour (so a date `jiff` refuses is refused
-/// here too); any other form goes to `jiff` whole.
-fn time_of(hour: &mut Option<([u8; 13], Option<i64>)>, raw: &[u8]) -> Option<Timestamp> {
-    if let Some((prefix, within, nanos)) = usual_form(raw) {
-        let start = match hour {
-            Some((p, start)) if *p == prefix => *start,
-            _ => {
-                let mut text = prefix.to_vec();
-                text.extend_from_slice(b":00:00Z");
-                let start = std::str::from_utf8(&text)
-                    .ok()
-                    .and_then(|t| t.parse::<Timestamp>().ok())
-                    .map(|t| t.as_second());
-                *hour = Some((prefix, start));
-                start
-            }
-        };
-        return start.and_then(|s| Timestamp::new(s + within, nanos).ok());
+/// The last hour of a time in the usual form: its `YYYY-MM-DDTHH` as two words (see
+/// [`usual_form`]), the second it starts at and whether every time within it is one
+/// `jiff` accepts (`None` when `jiff` refuses its start).
+type Hour = Option<((u64, u64), Option<(i64, bool)>)>;
+
+/// The time in `raw` (trimmed, not blank) as (floor second, nanoseconds), the parts
+/// [`Entry::set_time`] keeps, or `None` when it is not a valid time: exactly what
+/// `jiff` parses. The usual form `YYYY-MM-DDTHH:MM:SS[.f…]Z` (hours 00–23, minutes and
+/// seconds 00–59, one to nine digits of fraction) is computed from the start of its
+/// hour, which `jiff` parses once per hour (so a date `jiff` refuses is refused here
+/// too), without making a `Timestamp` unless the hour reaches past the last time
+/// `jiff` accepts; any other form goes to `jiff` whole.
+fn time_parts(hour: &mut Hour, raw: &[u8]) -> Option<(i64, i32)> {
+    let Some((prefix, within, nanos)) = usual_form(raw) else {
+        let t = std::str::from_utf8(raw).ok()?.parse::<Timestamp>().ok()?;
+        return Some(Entry::parts_of(t));
+    };
+    let start = match hour {
+        Some((p, start)) if *p == prefix => *start,
+        _ => {
+            let mut text = raw.get(..13)?.to_vec();
+            text.extend_from_slice(b":00:00Z");
+            let start = std::str::from_utf8(&text)
+                .ok()
+                .and_then(|t| t.parse::<Timestamp>().ok())
+                .map(|t| {
+                    let s = t.as_second();
+                    (s, Timestamp::new(s + 3599, 999_999_999).is_ok())
+                });
+            *hour = Some((prefix, start));
+            start
+        }
+    };
+    match start? {
+        // With nanoseconds of 0 or more, (second, nanoseconds) are already the parts.
+        (s, true) => Some((s + within, nanos)),
+        (s, false) => Timestamp::new(s + within, nanos).ok().map(Entry::parts_of),
     }
-    std::str::from_utf8(raw).ok()?.parse::<Timestamp>().ok()
 }
 
-/// `YYYY-MM-DDTHH:MM:SS[.f…]Z` split into the hour prefix, the seconds within the hour
-/// and the nanoseconds, when `b` has exactly that form with HH ≤ 23, MM ≤ 59, SS ≤ 59
-/// and one to nine digits after a `.`.
-fn usual_form(b: &[u8]) -> Option<([u8; 13], i64, i32)> {
-    if b.len() < 20 || b.len() == 21 || b.len() > 30 || b.last() != Some(&b'Z') {
+/// `YYYY-MM-DDTHH:MM:SS[.f…]Z` split into its hour (bytes 0–7 and 5–12 as two words),
+/// the seconds within the hour and the nanoseconds, when `b` has exactly that form with
+/// HH ≤ 23, MM ≤ 59, SS ≤ 59 and one to nine digits after a `.`.
+fn usual_form(b: &[u8]) -> Option<((u64, u64), i64, i32)> {
+    let len = b.len();
+    if len < 20 || len == 21 || len > 30 || b.last() != Some(&b'Z') {
         return None;
     }
-    let digits = [0, 1, 2, 3, 5, 6, 8, 9, 11, 12, 14, 15, 17, 18];
-    if !digits.iter().all(|&i| b[i].is_ascii_digit())
-        || (b[4], b[7], b[10], b[13], b[16]) != (b'-', b'-', b'T', b':', b':')
-    {
+    let word = |i: usize| {
+        b.get(i..i + 8)
+            .and_then(|w| w.try_into().ok())
+            .map(u64::from_le_bytes)
+    };
+    // Each byte xor its template (digits against `0`, separators against themselves)
+    // is at most 9 where a digit belongs and 0 where a separator does: the byte plus
+    // 0x76 (digits) or 0x7f (separators) then stays below 0x80. Bytes of 0x80 or more
+    // fail on their own, so no sum carries into the next byte.
+    let fits = |w: u64, template: &[u8; 8]| {
+        let add = template.map(|t| if t == b'0' { 0x76 } else { 0x7f });
+        let x = w ^ u64::from_le_bytes(*template);
+        (x | x.wrapping_add(u64::from_le_bytes(add))) & 0x8080_8080_8080_8080 == 0
+    };
+    // Bytes 0–7, 8–15 and 11–18.
+    let (w0, w1, w2) = (word(0)?, word(8)?, word(11)?);
+    if !(fits(w0, b"0000-00-") && fits(w1, b"00T00:00") && fits(w2, b"00:00:00")) {
         return None;
     }
-    let fraction = &b[19..b.len() - 1];
+    let fraction = b.get(19..len - 1)?;
     let nanos = match fraction.split_first() {
         None => 0,
-        Some((b'.', ds)) if ds.iter().all(u8::is_ascii_digit) => {
+        Some((b'.', ds)) => {
             let mut n: i32 = 0;
-            for i in 0..9 {
-                n = n * 10 + ds.get(i).map_or(0, |d| i32::from(d - b'0'));
+            for &d in ds {
+                let v = d.wrapping_sub(b'0');
+                if v > 9 {
+                    return None;
+                }
+                n = n * 10 + i32::from(v);
             }
-            n
+            // One to nine digits (the lengths above): scaled to nanoseconds.
+            n * [
+                1,
+                10,
+                100,
+                1_000,
+                10_000,
+                100_000,
+                1_000_000,
+                10_000_000,
+                100_000_000,
+            ]
+            .get(9usize.checked_sub(ds.len())?)?
         }
         _ => return None,
     };
-    let two = |i: usize| i64::from(b[i] - b'0') * 10 + i64::from(b[i + 1] - b'0');
+    let digit = |i: usize| b.get(i).map_or(0, |&d| i64::from(d.wrapping_sub(b'0')));
+    let two = |i: usize| digit(i) * 10 + digit(i + 1);
     let (hh, mm, ss) = (two(11), two(14), two(17));
     if hh > 23 || mm > 59 || ss > 59 {
         return None;
     }
-    let mut prefix = [0u8; 13];
-    prefix.copy_from_slice(&b[..13]);
-    Some((prefix, mm * 60 + ss, nanos))
+    Some(((w0, word(5)?), mm * 60 + ss, nanos))
 }
 
 /// A cell's values packed (see [`pack`]): the key of [`Reading`]'s cache of cells.
@@ -1125,8 +1176,73 @@ mod tests {
             .map(String::from),
         );
         for text in &texts {
-            let want = text.parse::<Timestamp>().ok();
-            assert_eq!(time_of(&mut hour, text.as_bytes()), want, "{text}");
+            let want = text.parse::<Timestamp>().ok().map(Entry::parts_of);
+            assert_eq!(time_parts(&mut hour, text.as_bytes()), want, "{text}");
         }
+    }
+
+    /// Times in the usual form and near it, one byte changed (to a digit, a
+    /// separator, a letter, a byte beyond ASCII, anything), cut or lengthened, with
+    /// fractions of every length, in hours next to each other and near the ends of
+    /// `jiff`'s range: the parts are jiff's, and `None` where jiff refuses.
+    #[test]
+    fn times_one_byte_off_the_usual_form_equal_jiffs_reading() {
+        let mut rng = ChaCha8Rng::seed_from_u64(12);
+        let days = [
+            "2026-03-02",
+            "1969-12-31",
+            "0000-01-01",
+            "9999-12-30",
+            "9999-12-31",
+        ];
+        let bytes = b"0123456789-T:.Z+ zt\x00\x7f\x80\xff/;";
+        let mut hour = None;
+        let mut refused = 0;
+        for _ in 0..60_000 {
+            let day = days[rng.random_range(0..days.len())];
+            let (h, m, s) = (
+                rng.random_range(20..24),
+                rng.random_range(0..60),
+                rng.random_range(0..60),
+            );
+            let digits = rng.random_range(0..=10);
+            let fraction: String = (0..digits)
+                .map(|_| char::from(b'0' + rng.random_range(0..10)))
+                .collect();
+            let dot = if digits > 0 { "." } else { "" };
+            let mut text = format!("{day}T{h:02}:{m:02}:{s:02}{dot}{fraction}Z").into_bytes();
+            match rng.random_range(0..4) {
+                0 => {}
+                1 | 2 => {
+                    let i = rng.random_range(0..text.len());
+                    text[i] = match rng.random_range(0..2) {
+                        0 => bytes[rng.random_range(0..bytes.len())],
+                        _ => rng.random(),
+                    };
+                }
+                _ => {
+                    let i = rng.random_range(0..=text.len());
+                    match rng.random_range(0..2) {
+                        0 if i < text.len() => {
+                            text.remove(i);
+                        }
+                        _ => text.insert(i, bytes[rng.random_range(0..bytes.len())]),
+                    }
+                }
+            }
+            let want = std::str::from_utf8(&text)
+                .ok()
+                .and_then(|t| t.parse::<Timestamp>().ok())
+                .map(Entry::parts_of);
+            refused += usize::from(want.is_none());
+            assert_eq!(
+                time_parts(&mut hour, &text),
+                want,
+                "{}",
+                String::from_utf8_lossy(&text)
+            );
+        }
+        // Both answers are common enough to be tested.
+        assert!((10_000..50_000).contains(&refused), "{refused}");
     }
 }
