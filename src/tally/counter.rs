@@ -35,8 +35,8 @@ use super::{Arrivals, CellKey, CellTally, Rejection, Tally, max_option};
 use crate::follow::Fields;
 use crate::rows::{self, Answer, Layout};
 
-/// Raw answers remembered per measure; later distinct values are classified each time.
-const ANSWER_CACHE: usize = 32;
+/// Slots of each measure's cache of raw answers (a power of two).
+const ANSWER_SLOTS: usize = 64;
 /// Raw cell spellings remembered; later ones are looked up by their normalised key.
 const CELL_CACHE: usize = 4096;
 /// Weight texts and distinct weights remembered.
@@ -323,7 +323,7 @@ pub(crate) struct Reading {
     registry: Shared,
     raw_key: Vec<u8>,
     weights: Weights,
-    answers: Vec<Vec<(u128, Answer)>>,
+    answers: Vec<AnswerCache>,
     /// The hour of the last time in the usual form (see [`time_parts`]).
     hour: Hour,
 }
@@ -348,7 +348,7 @@ impl Reading {
             by_packed: HashMap::default(),
             registry,
             raw_key: Vec::new(),
-            answers: vec![Vec::new(); layout.measures.len()],
+            answers: vec![AnswerCache::default(); layout.measures.len()],
             hour: None,
         }
     }
@@ -500,18 +500,14 @@ impl Reading {
         for (m, (rule, &slot)) in self.layout.measures.iter().zip(&slots.measures).enumerate() {
             let raw = value(slot);
             let packed = pack(raw);
-            let cache = &mut self.answers[m];
-            let answer = match packed.and_then(|p| cache.iter().find(|(r, _)| *r == p)) {
-                Some(&(_, a)) => a,
-                None => {
+            let cache = self.answers.get_mut(m);
+            let answer = match (packed, cache) {
+                (Some(p), Some(cache)) => cache.get(p).unwrap_or_else(|| {
                     let a = rule.classify(std::str::from_utf8(raw).unwrap_or_default());
-                    if let Some(p) = packed
-                        && cache.len() < ANSWER_CACHE
-                    {
-                        cache.push((p, a));
-                    }
+                    cache.put(p, a);
                     a
-                }
+                }),
+                _ => rule.classify(std::str::from_utf8(raw).unwrap_or_default()),
             };
             if answer == Answer::Unexpected {
                 let raw = match packed {
@@ -785,6 +781,42 @@ struct Slots {
     time: Option<usize>,
 }
 
+/// A measure's answers by their packed text (see [`pack`]), in a table of
+/// [`ANSWER_SLOTS`] where each text has one place: an answer is a pure function of
+/// its text, so a text that takes another's place only has that one classified again
+/// when it comes back.
+#[derive(Debug, Clone)]
+struct AnswerCache {
+    slots: Box<[(u128, Answer); ANSWER_SLOTS]>,
+}
+
+impl Default for AnswerCache {
+    fn default() -> AnswerCache {
+        // No packed text has a top byte of 0xff (its length, at most 15).
+        AnswerCache {
+            slots: Box::new([(u128::MAX, Answer::Missing); ANSWER_SLOTS]),
+        }
+    }
+}
+
+impl AnswerCache {
+    fn place(packed: u128) -> usize {
+        let folded = (packed as u64 ^ (packed >> 64) as u64).wrapping_mul(0x9e37_79b9_7f4a_7c15);
+        (folded >> (64 - ANSWER_SLOTS.trailing_zeros())) as usize
+    }
+
+    fn get(&self, packed: u128) -> Option<Answer> {
+        let &(text, answer) = self.slots.get(Self::place(packed))?;
+        (text == packed).then_some(answer)
+    }
+
+    fn put(&mut self, packed: u128, answer: Answer) {
+        if let Some(slot) = self.slots.get_mut(Self::place(packed)) {
+            *slot = (packed, answer);
+        }
+    }
+}
+
 /// Up to 15 bytes packed into one number (byte i at bits 8i, the length in the top
 /// byte), so that equal numbers mean equal bytes; `None` for longer text.
 fn pack(bytes: &[u8]) -> Option<u128> {
@@ -806,12 +838,11 @@ fn pack(bytes: &[u8]) -> Option<u128> {
             .map_or(0, u32::from_le_bytes)
     };
     let (low, high) = match len {
-        0..=3 => {
-            let low = bytes
-                .iter()
-                .enumerate()
-                .fold(0u64, |w, (i, &b)| w | u64::from(b) << (8 * i));
-            (low, 0)
+        0 => (0, 0),
+        // The first, middle and last bytes: every byte of one to three.
+        1..=3 => {
+            let at = |i: usize| bytes.get(i).map_or(0, |&b| u64::from(b) << (8 * i));
+            (at(0) | at(len / 2) | at(len - 1), 0)
         }
         4..=8 => {
             let low = u64::from(u32_at(0)) | u64::from(u32_at(len - 4)) << (8 * (len - 4));
