@@ -61,6 +61,9 @@ struct Staged {
     /// Arrivals in the current hour bucket not yet in `cell.arrivals`: (hour, count,
     /// the hour's first second).
     run: Option<(i64, u64, i64)>,
+    /// The first and the latest time counted and not yet in `cell.arrivals`, as
+    /// (floor second, nanoseconds) parts (see [`Entry::parts_of`]).
+    span: Option<((i64, i32), (i64, i32))>,
 }
 
 impl Staged {
@@ -77,6 +80,20 @@ impl Staged {
     fn flush_run(&mut self) {
         if let Some((hour, count, _)) = self.run.take() {
             *self.cell.arrivals.hours.entry(hour).or_insert(0) += count;
+        }
+    }
+
+    /// Move the first and latest times into the cell's arrivals.
+    fn flush_span(&mut self) {
+        let Some((first, latest)) = self.span.take() else {
+            return;
+        };
+        let arrivals = &mut self.cell.arrivals;
+        if let Some(first) = Entry::timestamp_of(first) {
+            arrivals.first = Some(arrivals.first.map_or(first, |f| f.min(first)));
+        }
+        if let Some(latest) = Entry::timestamp_of(latest) {
+            arrivals.latest = Some(arrivals.latest.map_or(latest, |l| l.max(latest)));
         }
     }
 }
@@ -264,11 +281,18 @@ impl Entry {
         )
     }
 
+    /// The time kept by [`Entry::set_time`].
+    #[cfg(test)]
     fn time(&self) -> Option<Timestamp> {
         if self.nanos == NONE_NANOS {
             return None;
         }
-        Timestamp::new(self.second, self.nanos).ok()
+        Entry::timestamp_of((self.second, self.nanos))
+    }
+
+    /// The time whose [`Entry::parts_of`] these are. Parts sort as their times do.
+    fn timestamp_of((second, nanos): (i64, i32)) -> Option<Timestamp> {
+        Timestamp::new(second, nanos).ok()
     }
 }
 
@@ -569,6 +593,7 @@ impl Counting {
                     cell: CellTally::new(Vec::new(), measures),
                     counts: vec![Vec::new(); measures],
                     run: None,
+                    span: None,
                 });
             }
             let known = self.spellings.len();
@@ -587,6 +612,8 @@ impl Counting {
             tally.ids.prefetch(hash);
         }
         let mut hashes = batch.hashes.iter().enumerate();
+        // The newest time counted in the batch, as parts.
+        let mut newest: Option<(i64, i32)> = None;
         for read in &batch.entries {
             let line = read.line;
             match read.kind {
@@ -692,30 +719,35 @@ impl Counting {
                     }
                 }
             }
-            match read.time() {
-                None => staged.cell.arrivals.untimed += 1,
-                Some(t) => {
-                    match &mut staged.run {
-                        // The same hour as the run's (without dividing).
-                        Some((_, count, start))
-                            if (*start..*start + Arrivals::BUCKET_SECONDS)
-                                .contains(&read.second) =>
-                        {
-                            *count += 1
-                        }
-                        _ => {
-                            staged.flush_run();
-                            let hour = Arrivals::hour_of(t);
-                            let start = hour * Arrivals::BUCKET_SECONDS;
-                            staged.run = Some((hour, 1, start));
-                        }
-                    }
-                    let arrivals = &mut staged.cell.arrivals;
-                    arrivals.first = Some(arrivals.first.map_or(t, |f| f.min(t)));
-                    arrivals.latest = Some(arrivals.latest.map_or(t, |l| l.max(t)));
-                    tally.newest = max_option(tally.newest, Some(t));
+            if read.nanos == NONE_NANOS {
+                staged.cell.arrivals.untimed += 1;
+                continue;
+            }
+            match &mut staged.run {
+                // The same hour as the run's (without dividing).
+                Some((_, count, start))
+                    if (*start..*start + Arrivals::BUCKET_SECONDS).contains(&read.second) =>
+                {
+                    *count += 1
+                }
+                _ => {
+                    staged.flush_run();
+                    // The floor second's hour: `Arrivals::hour_of` of the time.
+                    let hour = read.second.div_euclid(Arrivals::BUCKET_SECONDS);
+                    let start = hour * Arrivals::BUCKET_SECONDS;
+                    staged.run = Some((hour, 1, start));
                 }
             }
+            // Kept as parts until the flush (or the batch's end): no `Timestamp` per record.
+            let parts = (read.second, read.nanos);
+            staged.span = Some(match staged.span {
+                None => (parts, parts),
+                Some((first, latest)) => (first.min(parts), latest.max(parts)),
+            });
+            newest = newest.max(Some(parts));
+        }
+        if let Some(t) = newest.and_then(Entry::timestamp_of) {
+            tally.newest = max_option(tally.newest, Some(t));
         }
         if let Some((read, total)) = batch.reserve {
             tally.reserve_ids_for(read, total);
@@ -737,6 +769,7 @@ impl Counting {
                 continue;
             }
             staged.flush_run();
+            staged.flush_span();
             staged.flush_counts(&self.weights);
             let fresh = CellTally::new(staged.cell.label.clone(), staged.cell.measures.len());
             let cell = std::mem::replace(&mut staged.cell, fresh);
