@@ -633,7 +633,7 @@ mod tests {
             agrees(&data, delimiter)?;
         }
 
-        /// Long lines (several blocks of sixteen and words of eight) with at most one
+        /// Long lines (several blocks of thirty-two and words of eight) with at most one
         /// line end or quote, anywhere.
         #[test]
         fn long_lines_split_as_byte_by_byte(

@@ -27,9 +27,9 @@ const READ_BLOCK: usize = 64 << 10;
 /// Records sent on at a time.
 const PIPE_BATCH: usize = 2048;
 /// Batches (or promises of one) that may wait for the counting thread.
-const QUEUED: usize = 32;
+const QUEUED: usize = 64;
 /// Copies of records that go round between the calling thread and the helper.
-const RAW_BATCHES: usize = 8;
+const RAW_BATCHES: usize = 16;
 
 /// Tally the whole input (see [`super::tally_csv_sized`]).
 pub(super) fn tally<R: Read, E>(
