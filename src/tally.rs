@@ -1456,8 +1456,8 @@ south,old\r
         assert_eq!(distinct.distinct_ids(), 200_000);
         assert_eq!(distinct.rows_read, 200_000);
         assert_eq!(distinct.duplicates, 0);
-        // 16-byte hashes in tables at least 8/15 full: at most 30 bytes per id.
-        assert!(distinct.ids.capacity() * 16 <= 30 * 200_000);
+        // 12-byte slots in tables at least 8/15 full: at most 22.5 bytes per id.
+        assert!(distinct.ids.capacity() * ids::SLOT_BYTES * 2 <= 45 * 200_000);
 
         let repeated = many_records(200_000, 1_000);
         assert_eq!(repeated.distinct_ids(), 1_000);

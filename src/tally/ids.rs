@@ -1,27 +1,33 @@
 //! The set of respondent ids already counted, held as 128-bit hashes in an
 //! open-addressing table (linear probing), split into [`SHARDS`] shards by the hash's
-//! top bits so that a shard that grows copies only its own slots.
+//! top bits so that a shard that grows copies only its own slots. A shard keeps each
+//! hash's low 96 bits ([`key_of`]); the shard itself stands for the top five.
 //!
 //! # Exactness
 //!
 //! Ids are not kept, only their hashes: the 128-bit XXH3 hash of the trimmed id bytes,
-//! with seed 0 (so the same in every run). Two distinct ids share a hash with
-//! probability 2⁻¹²⁸ per pair if the hash behaves like a random function, so among n
-//! distinct ids the chance that any two collide is below n²/2¹²⁹: about 1.5 × 10⁻²³
-//! for 10⁸ ids. A collision would make a genuine response count as a duplicate (and be
-//! listed as one). XXH3 is not a cryptographic hash, so this is no defence against ids
-//! crafted to collide; ids come from the survey system, not from respondents. (Until
-//! issue 7's third round the hash was two SipHash-2-4 values under fixed keys, with the
-//! same bound; XXH3 gives it for about a tenth of the time.)
+//! with seed 0 (so the same in every run), of which 101 bits are kept and compared
+//! (the top five, as the shard, and the low 96). Two distinct ids agree on those bits
+//! with probability 2⁻¹⁰¹ per pair if the hash behaves like a random function, so
+//! among n distinct ids the chance that any two do is below n²/2¹⁰²: about 2 × 10⁻¹⁷
+//! for 10⁷ ids, 2 × 10⁻¹⁵ for 10⁸, 2 × 10⁻¹³ for 10⁹. Only then would a genuine
+//! response count as a duplicate (and be listed as one). XXH3 is not a cryptographic
+//! hash, so this is no defence against ids crafted to collide; ids come from the
+//! survey system, not from respondents. (Until issue 7's third round the hash was two
+//! SipHash-2-4 values under fixed keys; XXH3 gives it for about a tenth of the time.
+//! Until the eighth round all 128 bits were kept, 16 bytes a slot, for a bound of
+//! n²/2¹²⁹; 12 bytes a slot took a quarter off the memory to fill and to miss, and
+//! the bound stays far below any other cause of a wrong count.)
 //!
 //! # Memory
 //!
-//! 16 bytes a slot. A shard grows by half when it would pass 4/5 full, so after the
-//! first few thousand ids every shard is between 8/15 and 4/5 full: at most 30 bytes
-//! per distinct id, and a growth copies one shard (1/32 of the set) at a time. A set
-//! given room in advance ([`IdSet::reserve`], from an estimate) holds that room.
+//! [`SLOT_BYTES`] (12) a slot. A shard grows by half when it would pass 4/5 full, so
+//! after the first few thousand ids every shard is between 8/15 and 4/5 full: at most
+//! 22.5 bytes per distinct id, and a growth copies one shard (1/32 of the set) at a
+//! time. A set given room in advance ([`IdSet::reserve`], from an estimate) holds that
+//! room.
 //!
-//! A shard of 64 KiB or more is mapped on its own and given all its memory at once
+//! A shard of 48 KiB or more is mapped on its own and given all its memory at once
 //! (`MADV_POPULATE_WRITE`, Linux 5.14 and later, through memmap2's safe call), and
 //! the maps of a large reserve are made on every core. Left to the lookups (as a
 //! vector's memory is), each page's first lookup maps the shared zero page and its
@@ -42,21 +48,18 @@ use std::fmt;
 
 /// Shards, chosen by the top five bits of the hash.
 const SHARDS: usize = 32;
-/// Slots from which a shard is mapped on its own, its memory taken at once (64 KiB).
+/// Slots from which a shard is mapped on its own, its memory taken at once (48 KiB).
 const MAPPED_SLOTS: usize = 1 << 12;
-/// Slots from which a reserve makes its maps on every core (2 MiB a shard).
+/// Slots from which a reserve makes its maps on every core (1.5 MiB a shard).
 const SPREAD_SLOTS: usize = 1 << 17;
-/// Slots in a cache line (64 bytes).
-const LINE_SLOTS: usize = 4;
 /// The smallest shard that holds anything.
 const FIRST_CAPACITY: usize = 8;
 
-/// A set of 128-bit hashes. The value 0 marks an empty slot, so a hash of 0 is kept
-/// aside in `zero`.
+/// A set of 128-bit hashes, each kept as its shard (the top five bits) and its low
+/// 96 bits ([`key_of`]).
 #[derive(Clone, Default)]
 pub(super) struct IdSet {
     shards: Vec<Shard>,
-    zero: bool,
     len: usize,
 }
 
@@ -64,13 +67,23 @@ pub(super) struct IdSet {
 struct Shard {
     slots: Slots,
     len: usize,
+    /// The key 0 marks an empty slot, so a hash whose key is 0 is held here.
+    zero: bool,
 }
 
-/// A shard's slots: in a vector, or (when large) in memory mapped on its own.
-/// The value 0 marks an empty slot.
+/// Bytes a slot: a hash's low 96 bits, little-endian.
+pub(super) const SLOT_BYTES: usize = 12;
+
+/// The part of a hash a shard keeps: its low 96 bits (the shard is chosen by the top
+/// five, and the probe starts from the low 64).
+fn key_of(hash: u128) -> u128 {
+    hash & ((1u128 << 96) - 1)
+}
+
+/// A shard's slots ([`SLOT_BYTES`] each): in a vector, or (when large) in memory mapped
+/// on its own. The key 0 marks an empty slot.
 enum Slots {
-    Vec(Vec<u128>),
-    /// 16 bytes a slot, in native byte order.
+    Vec(Vec<u8>),
     Mapped(memmap2::MmapMut, usize),
 }
 
@@ -83,9 +96,7 @@ impl Default for Slots {
 impl Clone for Slots {
     fn clone(&self) -> Slots {
         let mut copy = Slots::zeroed(self.len());
-        for i in 0..self.len() {
-            copy.set(i, self.get(i).unwrap_or(0));
-        }
+        copy.bytes_mut().copy_from_slice(self.bytes());
         copy
     }
 }
@@ -94,89 +105,95 @@ impl Slots {
     /// `capacity` empty slots.
     fn zeroed(capacity: usize) -> Slots {
         if capacity >= MAPPED_SLOTS
-            && let Ok(map) = memmap2::MmapMut::map_anon(capacity * 16)
+            && let Ok(map) = memmap2::MmapMut::map_anon(capacity * SLOT_BYTES)
         {
             // Only advice (see the module notes): the map works the same if the
             // kernel ignores it.
             let _ = map.advise(memmap2::Advice::PopulateWrite);
             return Slots::Mapped(map, capacity);
         }
-        Slots::Vec(vec![0; capacity])
+        Slots::Vec(vec![0; capacity * SLOT_BYTES])
     }
 
     fn len(&self) -> usize {
         match self {
-            Slots::Vec(v) => v.len(),
+            Slots::Vec(v) => v.len() / SLOT_BYTES,
             Slots::Mapped(_, capacity) => *capacity,
         }
     }
 
+    fn bytes(&self) -> &[u8] {
+        match self {
+            Slots::Vec(v) => v,
+            Slots::Mapped(map, _) => map,
+        }
+    }
+
+    fn bytes_mut(&mut self) -> &mut [u8] {
+        match self {
+            Slots::Vec(v) => v,
+            Slots::Mapped(map, _) => map,
+        }
+    }
+
+    /// The key in slot `i` (0: empty), or `None` past the end.
     fn get(&self, i: usize) -> Option<u128> {
-        match self {
-            Slots::Vec(v) => v.get(i).copied(),
-            Slots::Mapped(map, _) => {
-                let bytes = map.get(i * 16..i * 16 + 16)?;
-                bytes.try_into().ok().map(u128::from_ne_bytes)
-            }
+        let slot: &[u8; SLOT_BYTES] = self.bytes().get(i * SLOT_BYTES..)?.first_chunk()?;
+        let (low, high) = slot.split_first_chunk::<8>()?;
+        let high: &[u8; 4] = high.try_into().ok()?;
+        Some(u128::from(u32::from_le_bytes(*high)) << 64 | u128::from(u64::from_le_bytes(*low)))
+    }
+
+    fn set(&mut self, i: usize, key: u128) {
+        let Some(slot) = self
+            .bytes_mut()
+            .get_mut(i * SLOT_BYTES..(i + 1) * SLOT_BYTES)
+        else {
+            return;
+        };
+        if let Some((low, high)) = slot.split_first_chunk_mut::<8>() {
+            *low = (key as u64).to_le_bytes();
+            high.copy_from_slice(&((key >> 64) as u32).to_le_bytes());
         }
     }
 
-    fn set(&mut self, i: usize, hash: u128) {
-        match self {
-            Slots::Vec(v) => {
-                if let Some(slot) = v.get_mut(i) {
-                    *slot = hash;
-                }
-            }
-            Slots::Mapped(map, _) => {
-                if let Some(slot) = map.get_mut(i * 16..i * 16 + 16) {
-                    slot.copy_from_slice(&hash.to_ne_bytes());
-                }
-            }
+    /// Prefetch the cache line of byte `at` (nothing past the end).
+    fn prefetch(&self, at: usize) {
+        if let Some(byte) = self.bytes().get(at) {
+            mem_prefetch::prefetch_read_data::<_, 3>(byte);
         }
     }
 
-    /// Prefetch slot `i` into the cache (nothing if there is no such slot).
-    fn prefetch(&self, i: usize) {
-        match self {
-            Slots::Vec(v) => {
-                if let Some(slot) = v.get(i) {
-                    mem_prefetch::prefetch_read_data::<_, 3>(slot);
-                }
-            }
-            Slots::Mapped(map, _) => {
-                if let Some(byte) = map.get(i * 16) {
-                    mem_prefetch::prefetch_read_data::<_, 3>(byte);
-                }
-            }
-        }
-    }
-
-    /// The hashes held, in slot order.
-    fn hashes(&self) -> impl Iterator<Item = u128> + '_ {
-        (0..self.len()).filter_map(|i| self.get(i).filter(|&h| h != 0))
+    /// The keys held (not 0), in slot order.
+    fn keys(&self) -> impl Iterator<Item = u128> + '_ {
+        (0..self.len()).filter_map(|i| self.get(i).filter(|&k| k != 0))
     }
 }
 
 impl Shard {
-    /// The slot where `hash`'s probe starts: the hash's low word scaled to the capacity
+    /// The slot where `key`'s probe starts: its low word scaled to the capacity
     /// (Lemire's multiply-shift), so any capacity works.
-    fn home(&self, hash: u128) -> usize {
-        ((u128::from(hash as u64) * self.slots.len() as u128) >> 64) as usize
+    fn home(&self, key: u128) -> usize {
+        ((u128::from(key as u64) * self.slots.len() as u128) >> 64) as usize
     }
 
-    /// Insert a nonzero hash; false if it was there already. The shard has room.
-    fn insert(&mut self, hash: u128) -> bool {
+    /// Insert a key; false if it was there already. The shard has room.
+    fn insert(&mut self, key: u128) -> bool {
+        if key == 0 {
+            let new = !self.zero;
+            self.zero = true;
+            return new;
+        }
         let capacity = self.slots.len();
-        let mut i = self.home(hash);
+        let mut i = self.home(key);
         loop {
             match self.slots.get(i) {
                 Some(0) => {
-                    self.slots.set(i, hash);
+                    self.slots.set(i, key);
                     self.len += 1;
                     return true;
                 }
-                Some(h) if h == hash => return false,
+                Some(k) if k == key => return false,
                 Some(_) => i += 1,
                 None => i = 0,
             }
@@ -186,15 +203,18 @@ impl Shard {
         }
     }
 
-    fn contains(&self, hash: u128) -> bool {
+    fn contains(&self, key: u128) -> bool {
+        if key == 0 {
+            return self.zero;
+        }
         if self.slots.len() == 0 {
             return false;
         }
-        let mut i = self.home(hash);
+        let mut i = self.home(key);
         loop {
             match self.slots.get(i) {
                 Some(0) => return false,
-                Some(h) if h == hash => return true,
+                Some(k) if k == key => return true,
                 Some(_) => i += 1,
                 None => i = 0,
             }
@@ -218,12 +238,12 @@ impl Shard {
         self.move_into(Slots::zeroed(capacity));
     }
 
-    /// Move the hashes into `slots` (empty, and with room for them all).
+    /// Move the keys into `slots` (empty, and with room for them all).
     fn move_into(&mut self, slots: Slots) {
         let old = std::mem::replace(&mut self.slots, slots);
         self.len = 0;
-        for h in old.hashes() {
-            self.insert(h);
+        for k in old.keys() {
+            self.insert(k);
         }
     }
 }
@@ -262,12 +282,6 @@ impl IdSet {
 
     /// Insert a hash: true if it was not there before.
     pub(super) fn insert_hash(&mut self, hash: u128) -> bool {
-        if hash == 0 {
-            let new = !self.zero;
-            self.zero = true;
-            self.len += usize::from(new);
-            return new;
-        }
         if self.shards.is_empty() {
             self.shards = vec![Shard::default(); SHARDS];
         }
@@ -275,7 +289,7 @@ impl IdSet {
             return false; // unreachable: there are SHARDS shards and the index is a byte
         };
         shard.reserve_one();
-        let new = shard.insert(hash);
+        let new = shard.insert(key_of(hash));
         self.len += usize::from(new);
         new
     }
@@ -292,19 +306,16 @@ impl IdSet {
     /// next line, which was then a second miss, one after the other.
     pub(super) fn prefetch(&self, hash: u128) {
         if let Some(shard) = self.shards.get(Self::shard_of(hash)) {
-            let home = shard.home(hash);
-            shard.slots.prefetch(home);
-            shard.slots.prefetch(home + LINE_SLOTS);
+            let at = shard.home(key_of(hash)) * SLOT_BYTES;
+            shard.slots.prefetch(at);
+            shard.slots.prefetch(at + 64);
         }
     }
 
     pub(super) fn contains_hash(&self, hash: u128) -> bool {
-        if hash == 0 {
-            return self.zero;
-        }
         self.shards
             .get(Self::shard_of(hash))
-            .is_some_and(|s| s.contains(hash))
+            .is_some_and(|s| s.contains(key_of(hash)))
     }
 
     /// Distinct ids held.
@@ -318,11 +329,17 @@ impl IdSet {
         self.shards.iter().map(|s| s.slots.len()).sum()
     }
 
+    /// The hashes held, as far as they are kept: each shard's keys, with the shard's
+    /// bits on top (which [`IdSet::contains_hash`] finds again).
     fn hashes(&self) -> impl Iterator<Item = u128> + '_ {
-        self.zero
-            .then_some(0)
-            .into_iter()
-            .chain(self.shards.iter().flat_map(|s| s.slots.hashes()))
+        self.shards.iter().enumerate().flat_map(|(i, s)| {
+            let top = (i as u128) << 123;
+            s.zero
+                .then_some(0)
+                .into_iter()
+                .chain(s.slots.keys())
+                .map(move |k| top | k)
+        })
     }
 }
 
@@ -394,6 +411,33 @@ mod tests {
         assert_eq!(reserved, grown);
     }
 
+    /// Hashes that differ only in their top five bits (the shard), or only in bits
+    /// 96–122 (which no shard keeps), and hashes whose kept part is 0 (the empty
+    /// slot's mark): the set tells the first kind apart, and takes the second for one
+    /// hash, as the module notes say.
+    #[test]
+    fn what_is_kept_of_a_hash_decides() {
+        let mut set = IdSet::default();
+        let base = hashes(3, 1)[0];
+        let low96 = key_of(base);
+        for shard in 0..SHARDS as u128 {
+            assert!(set.insert_hash(shard << 123 | low96));
+            assert!(set.insert_hash(shard << 123), "key 0 in shard {shard}");
+        }
+        assert_eq!(set.len(), 2 * SHARDS);
+        for shard in 0..SHARDS as u128 {
+            // Bits 96–122 are not kept: the same key in the same shard.
+            assert!(!set.insert_hash(shard << 123 | 0x5a5a_5a5a << 96 | low96));
+            assert!(!set.insert_hash(shard << 123 | 1 << 100));
+            assert!(set.contains_hash(shard << 123 | low96));
+        }
+        assert!(!set.contains_hash(low96 ^ 1));
+        assert_eq!(set.len(), 2 * SHARDS);
+        let copy = set.clone();
+        assert_eq!(copy, set);
+        assert_eq!(copy.hashes().count(), 2 * SHARDS);
+    }
+
     /// A shard large enough to live in its own map holds and finds exactly what a
     /// vector-backed one does, through growth and cloning.
     #[test]
@@ -403,11 +447,14 @@ mod tests {
         let mut big = Shard {
             slots: mapped,
             len: 0,
+            zero: false,
         };
         let mut small = Shard::default();
         let mut seeded = hashes(0x9e37_79b9_7f4a_7c15, MAPPED_SLOTS + 1000);
         let others = seeded.split_off(MAPPED_SLOTS);
         let hashes = seeded;
+        let hashes: Vec<u128> = hashes.into_iter().map(key_of).collect();
+        let others: Vec<u128> = others.into_iter().map(key_of).collect();
         for &h in &hashes {
             big.reserve_one();
             small.reserve_one();
@@ -426,7 +473,7 @@ mod tests {
         for &h in &others {
             assert_eq!(copy.contains(h), small.contains(h));
         }
-        let mut held: Vec<u128> = copy.slots.hashes().collect();
+        let mut held: Vec<u128> = copy.slots.keys().collect();
         let mut want = hashes.clone();
         held.sort_unstable();
         want.sort_unstable();
