@@ -144,6 +144,8 @@ pub(crate) struct Reader {
     out: usize,
     end: usize,
     header: Option<ByteRecord>,
+    /// The bytes of the header's fields, together.
+    header_bytes: usize,
     /// A run of NUL bytes between records: where it began and how long it is so far.
     nul_run: Option<(u64, u64)>,
     /// The delimiter, when records without quotes may be split in place (it is not
@@ -171,6 +173,7 @@ impl Reader {
             out: 0,
             end: 0,
             header: None,
+            header_bytes: 0,
             nul_run: None,
             split_on: (!matches!(delimiter, b'"' | b'\r' | b'\n')).then_some(delimiter),
             split_ends: Vec::with_capacity(64),
@@ -411,10 +414,11 @@ impl Reader {
         let Some(header) = &self.header else {
             let header = fields.to_byte_record();
             out.header(&header);
+            self.header_bytes = header.as_slice().len();
             self.header = Some(header);
             return;
         };
-        if too_long.is_none() && same_as_header(&fields, header) {
+        if too_long.is_none() && same_as_header(&fields, header, self.header_bytes) {
             warnings.push(Warning::RepeatedHeader {
                 line: self.start_line,
             });
@@ -537,15 +541,15 @@ fn split_line_by_words(data: &[u8], delimiter: u8, ends: &mut Vec<usize>) -> Opt
 
 /// Whether a record repeats the header (a second export appended to the first,
 /// perhaps with its own byte-order mark).
-fn same_as_header(record: &Fields<'_>, header: &ByteRecord) -> bool {
+/// `header_bytes` is the bytes of the header's fields together.
+fn same_as_header(record: &Fields<'_>, header: &ByteRecord, header_bytes: usize) -> bool {
     // The bytes of the fields, together: the header's, or 3 more with a byte-order mark.
     let total = match record.ends.last() {
         Some(&last) => last - record.gap * (record.ends.len() - 1),
         None => 0,
     };
-    let header_total = header.as_slice().len();
-    record.len() == header.len()
-        && (total == header_total || total == header_total + BOM.len())
+    (total == header_bytes || total == header_bytes + BOM.len())
+        && record.len() == header.len()
         && header.iter().enumerate().all(|(i, theirs)| {
             let mine = record.get(i).unwrap_or_default();
             let mine = if i == 0 {
