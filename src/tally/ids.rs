@@ -38,11 +38,11 @@
 //! slower.
 //!
 //! The maps are not offered for huge pages any more (`MADV_HUGEPAGE` until issue 7's
-//! eighth round). On the project's virtual machines, huge pages made of memory
-//! freed a few seconds before took 0.43–0.58 s of system time to give for the 213 MB of the 10 M-row benchmark's
-//! set, against 0.09–0.13 s for the same memory in 4 KiB pages, while the address
-//! translation misses that huge pages save cost less than that (see DEVELOPERS.md,
-//! "Reading fast").
+//! eighth round). On the project's virtual machines, huge pages made of memory freed
+//! a few seconds before took 0.43–0.58 s of system time to give for the 213 MB that
+//! the 10 M-row benchmark's set then took, against 0.09–0.13 s for the same memory
+//! in 4 KiB pages, while the address translation misses that huge pages save cost
+//! less than that (see DEVELOPERS.md, "Reading fast").
 
 use std::fmt;
 
@@ -301,9 +301,9 @@ impl IdSet {
 
     /// Ask for the memory of the slot where `hash`'s probe starts and of the cache
     /// line after it, ahead of [`IdSet::insert_hash`] (a prefetch: it changes nothing
-    /// but speed). A new id's probe runs on to the first empty slot: about 7 slots
-    /// on average in a set 3/4 full (linear probing), so it usually crosses into the
-    /// next line, which was then a second miss, one after the other.
+    /// but speed). A new id's probe runs on to the first empty slot: 8.5 slots on
+    /// average in a set 3/4 full (linear probing: (1 + 1/(1 − 3/4)²)/2), so it often
+    /// crosses into the next line, which was then a second miss, one after the other.
     pub(super) fn prefetch(&self, hash: u128) {
         if let Some(shard) = self.shards.get(Self::shard_of(hash)) {
             let at = shard.home(key_of(hash)) * SLOT_BYTES;
