@@ -834,8 +834,7 @@ impl Default for AnswerCache {
 
 impl AnswerCache {
     fn place(packed: u128) -> usize {
-        let folded = (packed as u64 ^ (packed >> 64) as u64).wrapping_mul(0x9e37_79b9_7f4a_7c15);
-        (folded >> (64 - ANSWER_SLOTS.trailing_zeros())) as usize
+        (fold(0, packed) >> (64 - ANSWER_SLOTS.trailing_zeros())) as usize
     }
 
     fn get(&self, packed: u128) -> Option<Answer> {
@@ -1045,12 +1044,14 @@ impl Hash for PackedCell {
     /// Its words folded into one, which [`Mix`] takes in one step (an array of them
     /// is hashed as its 64 bytes and a length, nine steps).
     fn hash<H: Hasher>(&self, state: &mut H) {
-        let folded = self.0.iter().fold(0u64, |h, &word| {
-            (h.rotate_left(23) ^ word as u64 ^ (word >> 64) as u64)
-                .wrapping_mul(0x9e37_79b9_7f4a_7c15)
-        });
-        state.write_u64(folded);
+        state.write_u64(self.0.iter().fold(0, |h, &word| fold(h, word)));
     }
+}
+
+/// A packed text (see [`pack`]) folded into `h`: both halves, then a multiply that
+/// spreads them over the top bits (which [`AnswerCache`] takes its place from).
+fn fold(h: u64, word: u128) -> u64 {
+    (h.rotate_left(23) ^ word as u64 ^ (word >> 64) as u64).wrapping_mul(0x9e37_79b9_7f4a_7c15)
 }
 
 /// A small fast hash for the cell cache's keys (a few bytes each, not chosen by an
