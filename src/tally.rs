@@ -295,7 +295,12 @@ impl Arrivals {
 
     /// The bucket (hour since the Unix epoch, rounded down) that holds `t`.
     pub fn hour_of(t: Timestamp) -> i64 {
-        Self::second_of(t).div_euclid(Self::BUCKET_SECONDS)
+        Self::hour_of_second(Self::second_of(t))
+    }
+
+    /// The bucket that holds the whole second `second` (see [`Arrivals::second_of`]).
+    pub(crate) fn hour_of_second(second: i64) -> i64 {
+        second.div_euclid(Self::BUCKET_SECONDS)
     }
 
     /// The whole second `t` falls in (the floor, also before 1970).

@@ -267,27 +267,12 @@ impl Entry {
             .then_some(self.id_start as usize..self.id_end as usize)
     }
 
-    /// Keep `t` as (floor second, nanoseconds from it), which [`Entry::time`] gives back.
-    #[cfg(test)]
-    fn set_time(&mut self, t: Timestamp) {
-        (self.second, self.nanos) = Entry::parts_of(t);
-    }
-
-    /// `t` as (floor second, nanoseconds from it, 0 or more).
+    /// `t` as (floor second, nanoseconds from it, 0 or more): how an entry keeps it.
     fn parts_of(t: Timestamp) -> (i64, i32) {
         (
             Arrivals::second_of(t),
             t.subsec_nanosecond().rem_euclid(1_000_000_000),
         )
-    }
-
-    /// The time kept by [`Entry::set_time`].
-    #[cfg(test)]
-    fn time(&self) -> Option<Timestamp> {
-        if self.nanos == NONE_NANOS {
-            return None;
-        }
-        Entry::timestamp_of((self.second, self.nanos))
     }
 
     /// The time whose [`Entry::parts_of`] these are. Parts sort as their times do.
@@ -732,8 +717,7 @@ impl Counting {
                 }
                 _ => {
                     staged.flush_run();
-                    // The floor second's hour: `Arrivals::hour_of` of the time.
-                    let hour = read.second.div_euclid(Arrivals::BUCKET_SECONDS);
+                    let hour = Arrivals::hour_of_second(read.second);
                     let start = hour * Arrivals::BUCKET_SECONDS;
                     staged.run = Some((hour, 1, start));
                 }
@@ -938,7 +922,7 @@ impl Weights {
 type Hour = Option<((u64, u64), Option<(i64, bool)>)>;
 
 /// The time in `raw` (trimmed, not blank) as (floor second, nanoseconds), the parts
-/// [`Entry::set_time`] keeps, or `None` when it is not a valid time: exactly what
+/// [`Entry::parts_of`] gives, or `None` when it is not a valid time: exactly what
 /// `jiff` parses. The usual form `YYYY-MM-DDTHH:MM:SS[.f…]Z` (hours 00–23, minutes and
 /// seconds 00–59, one to nine digits of fraction) is computed from the start of its
 /// hour, which `jiff` parses once per hour (so a date `jiff` refuses is refused here
@@ -1183,8 +1167,10 @@ mod tests {
         assert_ne!(pack(b"a"), pack(b"a\0"));
     }
 
-    /// A time kept in an entry as (floor second, nanoseconds) comes back the same,
-    /// before 1970 and after, with and without a fraction.
+    /// A time kept in an entry as (floor second, nanoseconds) parts comes back the
+    /// same, before 1970 and after, with and without a fraction; parts sort as their
+    /// times do (the counting half's first, latest and newest rely on it); an entry
+    /// without a time is marked so.
     #[test]
     fn times_in_entries_come_back_the_same() {
         let mut rng = ChaCha8Rng::seed_from_u64(3);
@@ -1199,12 +1185,35 @@ mod tests {
                 times.push(t);
             }
         }
-        for t in times {
-            let mut entry = Entry::at(2);
-            entry.set_time(t);
-            assert_eq!(entry.time(), Some(t), "{t}");
+        // Times a fraction of a second apart, on both sides of 1970.
+        for second in [-2i64, -1, 0, 1, 1_772_438_400] {
+            for nanos in [
+                -999_999_999,
+                -500_000_000,
+                -1,
+                0,
+                1,
+                500_000_000,
+                999_999_999,
+            ] {
+                times.extend(Timestamp::new(second, nanos).ok());
+            }
         }
-        assert_eq!(Entry::at(2).time(), None);
+        for t in &times {
+            let parts = Entry::parts_of(*t);
+            assert!((0..1_000_000_000).contains(&parts.1), "{t}");
+            assert_eq!(Entry::timestamp_of(parts), Some(*t), "{t}");
+        }
+        for a in times.iter().rev().take(60) {
+            for b in &times {
+                assert_eq!(
+                    Entry::parts_of(*a).cmp(&Entry::parts_of(*b)),
+                    a.cmp(b),
+                    "{a} {b}"
+                );
+            }
+        }
+        assert_eq!(Entry::at(2).nanos, NONE_NANOS);
     }
 
     #[test]
