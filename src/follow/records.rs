@@ -63,6 +63,22 @@ impl<'a> Fields<'a> {
         self.ascii
     }
 
+    /// Fields `first` to `last` as one run of bytes, the delimiters between them
+    /// included: the record's bytes and where the run starts and ends in them. Only
+    /// for a record split in place (no quotes, one delimiter between fields) and known
+    /// to be ASCII, where equal runs mean equal fields; `None` for any other.
+    pub(crate) fn run(&self, first: usize, last: usize) -> Option<(&'a [u8], usize, usize)> {
+        if self.gap != 1 || !self.ascii {
+            return None;
+        }
+        let start = match first.checked_sub(1) {
+            None => 0,
+            Some(before) => self.ends.get(before)? + 1,
+        };
+        let end = *self.ends.get(last)?;
+        (start <= end && end <= self.bytes.len()).then_some((self.bytes, start, end))
+    }
+
     /// The number of fields.
     pub fn len(&self) -> usize {
         self.ends.len()
