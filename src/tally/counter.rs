@@ -58,6 +58,9 @@ const ANSWER_SPANS: usize = 256;
 const CELL_SPANS: usize = 64;
 /// The most measures whose answers are looked up together by their run of bytes.
 const SPAN_MEASURES: usize = 8;
+/// The most measures whose answers a cell counts together, as one combination (4
+/// kinds of answer each: at most 256 counts a cell).
+const COMBINED_MEASURES: usize = 4;
 
 /// A cell being counted: its key and the sums since the last flush.
 #[derive(Debug)]
@@ -66,6 +69,9 @@ struct Staged {
     cell: CellTally,
     /// Per measure, per remembered weight: [yes, no] answers not yet in `cell`.
     counts: Vec<Vec<[u64; 2]>>,
+    /// Records of weight 1 not yet in `cell`, by the combination of their answers
+    /// ([`combination`]); empty for more than [`COMBINED_MEASURES`] measures.
+    combined: Vec<u64>,
     /// Arrivals in the current hour bucket not yet in `cell.arrivals`: (hour, count,
     /// the hour's first second).
     run: Option<(i64, u64, i64)>,
@@ -75,8 +81,51 @@ struct Staged {
 }
 
 impl Staged {
-    /// Move the counts per weight into the cell's sums.
+    fn new(key: CellKey, measures: usize) -> Staged {
+        let combinations = match measures <= COMBINED_MEASURES {
+            true => 1 << (2 * measures),
+            false => 0,
+        };
+        Staged {
+            key,
+            cell: CellTally::new(Vec::new(), measures),
+            counts: vec![Vec::new(); measures],
+            combined: vec![0; combinations],
+            run: None,
+            span: None,
+        }
+    }
+
+    /// Move the counts per weight (and per combination of answers) into the cell's
+    /// sums.
     fn flush_counts(&mut self, weights: &[f64]) {
+        for (code, count) in self.combined.iter_mut().enumerate() {
+            let n = std::mem::take(count);
+            if n == 0 {
+                continue;
+            }
+            for (m, (measure, counts)) in self
+                .cell
+                .measures
+                .iter_mut()
+                .zip(&mut self.counts)
+                .enumerate()
+            {
+                match (code >> (2 * m)) & 3 {
+                    kind @ (0 | 1) => {
+                        // Weight 1 is the registry's weight 0.
+                        if counts.is_empty() {
+                            counts.push([0, 0]);
+                        }
+                        if let Some(yes_no) = counts.first_mut().and_then(|c| c.get_mut(kind)) {
+                            *yes_no += n;
+                        }
+                    }
+                    2 => measure.missing += n,
+                    _ => measure.unexpected += n,
+                }
+            }
+        }
         for (measure, counts) in self.cell.measures.iter_mut().zip(&mut self.counts) {
             for (&w, [yes, no]) in weights.iter().zip(counts.iter_mut()) {
                 measure.add_many(*yes, *no, w);
@@ -658,13 +707,7 @@ impl Counting {
             // Every number in the batch was registered before the batch was sent.
             let registry = lock(&self.registry);
             for key in registry.cells.iter().skip(self.staged.len()) {
-                self.staged.push(Staged {
-                    key: key.clone(),
-                    cell: CellTally::new(Vec::new(), measures),
-                    counts: vec![Vec::new(); measures],
-                    run: None,
-                    span: None,
-                });
+                self.staged.push(Staged::new(key.clone(), measures));
             }
             let known = self.spellings.len();
             self.spellings
@@ -754,22 +797,30 @@ impl Counting {
             }
             staged.cell.responses += 1;
             let answers = batch.answers.get(mine).unwrap_or_default();
-            for (m, &answer) in answers.iter().enumerate() {
-                let counted = match (answer, weight_index) {
-                    (Answer::Yes | Answer::No, Some(i)) => {
-                        let i = i as usize;
-                        staged.counts.get_mut(m).is_some_and(|counts| {
-                            if counts.len() <= i {
-                                counts.resize(i + 1, [0, 0]);
-                            }
-                            counts[i][usize::from(answer == Answer::No)] += 1;
-                            true
-                        })
+            let combined = match weight_index {
+                Some(0) => staged.combined.get_mut(combination(answers)),
+                _ => None,
+            };
+            if let Some(count) = combined {
+                *count += 1;
+            } else {
+                for (m, &answer) in answers.iter().enumerate() {
+                    let counted = match (answer, weight_index) {
+                        (Answer::Yes | Answer::No, Some(i)) => {
+                            let i = i as usize;
+                            staged.counts.get_mut(m).is_some_and(|counts| {
+                                if counts.len() <= i {
+                                    counts.resize(i + 1, [0, 0]);
+                                }
+                                counts[i][usize::from(answer == Answer::No)] += 1;
+                                true
+                            })
+                        }
+                        _ => false,
+                    };
+                    if !counted && let Some(measure) = staged.cell.measures.get_mut(m) {
+                        measure.add_unrounded(answer, weight);
                     }
-                    _ => false,
-                };
-                if !counted && let Some(measure) = staged.cell.measures.get_mut(m) {
-                    measure.add_unrounded(answer, weight);
                 }
             }
             for (m, raw) in batch.unexpected.get(theirs).unwrap_or_default() {
@@ -1103,6 +1154,20 @@ fn usual_form(b: &[u8]) -> Option<((u64, u64), i64, i32)> {
         return None;
     }
     Some(((w0, word(5)?), mm * 60 + ss, nanos))
+}
+
+/// A record's answers as one number: two bits each (yes 0, no 1, missing 2,
+/// unexpected 3), the first measure's lowest.
+fn combination(answers: &[Answer]) -> usize {
+    answers.iter().rev().fold(0, |code, &answer| {
+        code << 2
+            | match answer {
+                Answer::Yes => 0,
+                Answer::No => 1,
+                Answer::Missing => 2,
+                Answer::Unexpected => 3,
+            }
+    })
 }
 
 /// The first and last of some columns, when there are any.
