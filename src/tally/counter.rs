@@ -8,8 +8,9 @@
 //!   classified through a cache per measure (raw answer → yes / no / missing /
 //!   unexpected); before either, a record split in place looks up the run of bytes
 //!   from its cell's first column to the last, and from its measures' first to the
-//!   last, whole (a run of up to 32 bytes → the cell, or every answer); times in the usual `YYYY-MM-DDTHH:MM:SS[.f…]Z` form are computed
-//!   from a cached start of their hour, and the id's bytes and hash are kept.
+//!   last, whole (a run of up to 32 bytes → the cell, or every answer). Times in
+//!   the usual `YYYY-MM-DDTHH:MM:SS[.f…]Z` form are computed from a cached start of
+//!   their hour, and the id's bytes and hash are kept.
 //!   Anything else — a wrong field count, text that is not UTF-8, a bad weight or
 //!   time — is kept whole, to go through [`Tally::add_record`] itself, so every
 //!   rejection is the one the record-by-record path gives. Cells, spellings and
@@ -1191,7 +1192,7 @@ impl SpanKey {
 
     /// `bytes[start..end]` as a key (`None` if longer than [`SpanKey::MAX`]). Read as
     /// whole sixteen-byte words of `bytes` ending at `end` or starting at `start`,
-    /// shifted or masked to the run (a copy only in a record of under 16 bytes).
+    /// shifted to the run (a copy only when the run ends in the first 16 bytes).
     fn of(bytes: &[u8], start: usize, end: usize) -> Option<SpanKey> {
         let len = end.checked_sub(start)?;
         if len > Self::MAX {
