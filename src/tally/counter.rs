@@ -385,7 +385,8 @@ pub(crate) struct Reading {
     cells: CellCache,
     registry: Shared,
     weights: Weights,
-    answers: Vec<AnswerCache>,
+    /// Each measure's answers by their packed text (see [`pack`]).
+    answers: Vec<ByPlace<u128, Answer, ANSWER_SLOTS>>,
     /// The columns from the first to the last of the cell's, and of the measures'
     /// (at most [`SPAN_MEASURES`] of them): each range is looked up as one run of
     /// bytes (see [`SpanKey`]) before its values are looked up one by one.
@@ -393,8 +394,8 @@ pub(crate) struct Reading {
     answer_run: Option<(usize, usize)>,
     /// (cell, spelling) by the cell's run; the answers, in measure order, by the
     /// measures' run (runs with an unexpected answer are not kept).
-    cells_by_run: SpanCache<(u32, u32), CELL_SPANS>,
-    answers_by_run: SpanCache<[Answer; SPAN_MEASURES], ANSWER_SPANS>,
+    cells_by_run: ByPlace<SpanKey, (u32, u32), CELL_SPANS>,
+    answers_by_run: ByPlace<SpanKey, [Answer; SPAN_MEASURES], ANSWER_SPANS>,
     /// The hour of the last time in the usual form (see [`time_parts`]).
     hour: Hour,
 }
@@ -417,12 +418,12 @@ impl Reading {
             used,
             cells: CellCache::default(),
             registry,
-            answers: vec![AnswerCache::default(); layout.measures.len()],
+            answers: vec![ByPlace::new(Answer::Missing); layout.measures.len()],
             cell_run: column_range(layout.cells.iter().copied()),
             answer_run: column_range(layout.measures.iter().map(|m| m.column))
                 .filter(|_| layout.measures.len() <= SPAN_MEASURES),
-            cells_by_run: SpanCache::new((0, 0)),
-            answers_by_run: SpanCache::new([Answer::Missing; SPAN_MEASURES]),
+            cells_by_run: ByPlace::new((0, 0)),
+            answers_by_run: ByPlace::new([Answer::Missing; SPAN_MEASURES]),
             hour: None,
         }
     }
@@ -550,7 +551,7 @@ impl Reading {
             let packed = pack(raw);
             let cache = self.answers.get_mut(m);
             let answer = match (packed, cache) {
-                (Some(p), Some(cache)) => cache.get(p).unwrap_or_else(|| {
+                (Some(p), Some(cache)) => cache.get(p).copied().unwrap_or_else(|| {
                     let a = rule.classify(std::str::from_utf8(raw).unwrap_or_default());
                     cache.put(p, a);
                     a
@@ -935,41 +936,6 @@ struct Slots {
     time: Option<usize>,
 }
 
-/// A measure's answers by their packed text (see [`pack`]), in a table of
-/// [`ANSWER_SLOTS`] where each text has one place: an answer is a pure function of
-/// its text, so a text that takes another's place only has that one classified again
-/// when it comes back.
-#[derive(Debug, Clone)]
-struct AnswerCache {
-    slots: Box<[(u128, Answer); ANSWER_SLOTS]>,
-}
-
-impl Default for AnswerCache {
-    fn default() -> AnswerCache {
-        // No packed text has a top byte of 0xff (its length, at most 15).
-        AnswerCache {
-            slots: Box::new([(u128::MAX, Answer::Missing); ANSWER_SLOTS]),
-        }
-    }
-}
-
-impl AnswerCache {
-    fn place(packed: u128) -> usize {
-        (fold(0, packed) >> (64 - ANSWER_SLOTS.trailing_zeros())) as usize
-    }
-
-    fn get(&self, packed: u128) -> Option<Answer> {
-        let &(text, answer) = self.slots.get(Self::place(packed))?;
-        (text == packed).then_some(answer)
-    }
-
-    fn put(&mut self, packed: u128, answer: Answer) {
-        if let Some(slot) = self.slots.get_mut(Self::place(packed)) {
-            *slot = (packed, answer);
-        }
-    }
-}
-
 /// Up to 15 bytes packed into one number (byte i at bits 8i, the length in the top
 /// byte), so that equal numbers mean equal bytes; `None` for longer text.
 fn pack(bytes: &[u8]) -> Option<u128> {
@@ -1221,42 +1187,61 @@ impl SpanKey {
         };
         Some(SpanKey { low, high, len })
     }
+}
 
-    /// Its place in a table of `places` (a power of two).
+/// A key of a [`ByPlace`] table: where it goes in a table of `places` (a power of
+/// two), and a key that no real one equals, marking a place never filled.
+trait Placed: Copy + PartialEq {
+    const NONE: Self;
+    fn place(&self, places: usize) -> usize;
+}
+
+impl Placed for u128 {
+    /// No packed text (see [`pack`]) has a top byte of 0xff (its length, at most 15).
+    const NONE: u128 = u128::MAX;
+
+    fn place(&self, places: usize) -> usize {
+        (fold(0, *self) >> (64 - places.trailing_zeros())) as usize
+    }
+}
+
+impl Placed for SpanKey {
+    /// No run has a length of `usize::MAX`.
+    const NONE: SpanKey = SpanKey {
+        low: 0,
+        high: 0,
+        len: usize::MAX,
+    };
+
     fn place(&self, places: usize) -> usize {
         let h = fold(fold(self.len as u64, self.low), self.high);
         (h >> (64 - places.trailing_zeros())) as usize
     }
 }
 
-/// Values by the run of bytes they were found from, in a table of `N` (a power of
-/// two) where each run has one place: the values are a pure function of the run, so
-/// a run that takes another's place only has that one found again when it comes
+/// Values by their key (a packed text, a run of bytes), in a table of `N` (a power of
+/// two) where each key has one place: the values are a pure function of the key, so
+/// a key that takes another's place only has that one found again when it comes
 /// back.
 #[derive(Debug, Clone)]
-struct SpanCache<V, const N: usize> {
-    slots: Box<[(SpanKey, V); N]>,
+struct ByPlace<K, V, const N: usize> {
+    slots: Box<[(K, V); N]>,
 }
 
-impl<V: Copy, const N: usize> SpanCache<V, N> {
+impl<K: Placed, V: Copy, const N: usize> ByPlace<K, V, N> {
+    /// An empty table (`empty` fills the places never found).
     fn new(empty: V) -> Self {
-        // No run has a length of `usize::MAX`.
-        let none = SpanKey {
-            low: 0,
-            high: 0,
-            len: usize::MAX,
-        };
-        SpanCache {
-            slots: Box::new([(none, empty); N]),
+        ByPlace {
+            slots: Box::new([(K::NONE, empty); N]),
         }
     }
 
-    fn get(&self, key: SpanKey) -> Option<&V> {
+    fn get(&self, key: K) -> Option<&V> {
         let (kept, value) = self.slots.get(key.place(N))?;
         (*kept == key).then_some(value)
     }
 
-    fn put(&mut self, key: SpanKey, value: V) {
+    fn put(&mut self, key: K, value: V) {
         if let Some(slot) = self.slots.get_mut(key.place(N)) {
             *slot = (key, value);
         }
@@ -1276,7 +1261,7 @@ impl Hash for PackedCell {
 }
 
 /// A packed text (see [`pack`]) folded into `h`: both halves, then a multiply that
-/// spreads them over the top bits (which [`AnswerCache`] takes its place from).
+/// spreads them over the top bits (which [`ByPlace`] takes a place from).
 fn fold(h: u64, word: u128) -> u64 {
     (h.rotate_left(23) ^ word as u64 ^ (word >> 64) as u64).wrapping_mul(0x9e37_79b9_7f4a_7c15)
 }
