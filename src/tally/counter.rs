@@ -53,12 +53,12 @@ const PACKED_CELLS: usize = 4;
 const AHEAD: usize = 16;
 /// The most columns a record may be read from in place (more go record by record).
 const MAX_USED: usize = 24;
-/// Places in the caches of runs of bytes (see [`SpanKey`]): of the measures' answers
+/// Places in the caches of runs of bytes (see [`RunKey`]): of the measures' answers
 /// together, and of the cell's values together.
-const ANSWER_SPANS: usize = 256;
-const CELL_SPANS: usize = 64;
+const ANSWER_RUNS: usize = 256;
+const CELL_RUNS: usize = 64;
 /// The most measures whose answers are looked up together by their run of bytes.
-const SPAN_MEASURES: usize = 8;
+const RUN_MEASURES: usize = 8;
 /// The most measures whose answers a cell counts together, as one combination (4
 /// kinds of answer each: at most 256 counts a cell).
 const COMBINED_MEASURES: usize = 4;
@@ -83,9 +83,10 @@ struct Staged {
 
 impl Staged {
     fn new(key: CellKey, measures: usize) -> Staged {
-        let combinations = match measures <= COMBINED_MEASURES {
-            true => 1 << (2 * measures),
-            false => 0,
+        let combinations = if measures <= COMBINED_MEASURES {
+            1 << (2 * measures)
+        } else {
+            0
         };
         Staged {
             key,
@@ -388,14 +389,14 @@ pub(crate) struct Reading {
     /// Each measure's answers by their packed text (see [`pack`]).
     answers: Vec<ByPlace<u128, Answer, ANSWER_SLOTS>>,
     /// The columns from the first to the last of the cell's, and of the measures'
-    /// (at most [`SPAN_MEASURES`] of them): each range is looked up as one run of
-    /// bytes (see [`SpanKey`]) before its values are looked up one by one.
+    /// (at most [`RUN_MEASURES`] of them): each range is looked up as one run of
+    /// bytes (see [`RunKey`]) before its values are looked up one by one.
     cell_run: Option<(usize, usize)>,
     answer_run: Option<(usize, usize)>,
     /// (cell, spelling) by the cell's run; the answers, in measure order, by the
     /// measures' run (runs with an unexpected answer are not kept).
-    cells_by_run: ByPlace<SpanKey, (u32, u32), CELL_SPANS>,
-    answers_by_run: ByPlace<SpanKey, [Answer; SPAN_MEASURES], ANSWER_SPANS>,
+    cells_by_run: ByPlace<RunKey, (u32, u32), CELL_RUNS>,
+    answers_by_run: ByPlace<RunKey, [Answer; RUN_MEASURES], ANSWER_RUNS>,
     /// The hour of the last time in the usual form (see [`time_parts`]).
     hour: Hour,
 }
@@ -421,9 +422,9 @@ impl Reading {
             answers: vec![ByPlace::new(Answer::Missing); layout.measures.len()],
             cell_run: column_range(layout.cells.iter().copied()),
             answer_run: column_range(layout.measures.iter().map(|m| m.column))
-                .filter(|_| layout.measures.len() <= SPAN_MEASURES),
+                .filter(|_| layout.measures.len() <= RUN_MEASURES),
             cells_by_run: ByPlace::new((0, 0)),
-            answers_by_run: ByPlace::new([Answer::Missing; SPAN_MEASURES]),
+            answers_by_run: ByPlace::new([Answer::Missing; RUN_MEASURES]),
             hour: None,
         }
     }
@@ -493,10 +494,7 @@ impl Reading {
         // The cell, from its raw values: (cell, spelling). First the run of bytes of
         // its columns together (a record split in place), then short values of a few
         // columns packed (see `pack`), others joined.
-        let cell_run = self
-            .cell_run
-            .and_then(|(first, last)| fields.run(first, last))
-            .and_then(|(bytes, start, end)| SpanKey::of(bytes, start, end));
+        let cell_run = RunKey::of_columns(&fields, self.cell_run);
         let by_run = cell_run.and_then(|run| self.cells_by_run.get(run));
         let (cell, spelling) = match by_run {
             Some(&(cell, spelling)) => (cell, Some(spelling)),
@@ -532,10 +530,7 @@ impl Reading {
             batch.hashes.push(id_hash(raw));
         }
         // The answers: first by the run of bytes of the measures' columns together.
-        let answer_run = self
-            .answer_run
-            .and_then(|(first, last)| fields.run(first, last))
-            .and_then(|(bytes, start, end)| SpanKey::of(bytes, start, end));
+        let answer_run = RunKey::of_columns(&fields, self.answer_run);
         let measures = self.layout.measures.len();
         if let Some(answers) = answer_run
             .and_then(|run| self.answers_by_run.get(run))
@@ -572,7 +567,7 @@ impl Reading {
         if let Some(run) = answer_run
             && unexpected == 0
         {
-            let mut answers = [Answer::Missing; SPAN_MEASURES];
+            let mut answers = [Answer::Missing; RUN_MEASURES];
             for (kept, &answer) in answers
                 .iter_mut()
                 .zip(batch.answers.get(first_answer..).unwrap_or_default())
@@ -1146,20 +1141,28 @@ fn column_range(columns: impl Iterator<Item = usize> + Clone) -> Option<(usize, 
 /// the rest, each padded with zeros, and its length, so that equal keys mean equal
 /// bytes.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
-struct SpanKey {
+struct RunKey {
     low: u128,
     high: u128,
     len: usize,
 }
 
-impl SpanKey {
+impl RunKey {
     /// Bytes a run may have to make a key.
     const MAX: usize = 32;
 
-    /// `bytes[start..end]` as a key (`None` if longer than [`SpanKey::MAX`]). Read as
+    /// The run of `fields` from the first to the last of `columns` as a key, when
+    /// there are columns and the record was split in place (see [`Fields::run`]).
+    fn of_columns(fields: &Fields<'_>, columns: Option<(usize, usize)>) -> Option<RunKey> {
+        let (first, last) = columns?;
+        let (bytes, start, end) = fields.run(first, last)?;
+        RunKey::of(bytes, start, end)
+    }
+
+    /// `bytes[start..end]` as a key (`None` if longer than [`RunKey::MAX`]). Read as
     /// whole sixteen-byte words of `bytes` ending at `end` or starting at `start`,
     /// shifted to the run (a copy only when the run ends in the first 16 bytes).
-    fn of(bytes: &[u8], start: usize, end: usize) -> Option<SpanKey> {
+    fn of(bytes: &[u8], start: usize, end: usize) -> Option<RunKey> {
         let len = end.checked_sub(start)?;
         if len > Self::MAX {
             return None;
@@ -1185,7 +1188,7 @@ impl SpanKey {
             0..=16 => (tail(len)?, 0),
             _ => (word(start)?, tail(len - 16)?),
         };
-        Some(SpanKey { low, high, len })
+        Some(RunKey { low, high, len })
     }
 }
 
@@ -1205,9 +1208,9 @@ impl Placed for u128 {
     }
 }
 
-impl Placed for SpanKey {
+impl Placed for RunKey {
     /// No run has a length of `usize::MAX`.
-    const NONE: SpanKey = SpanKey {
+    const NONE: RunKey = RunKey {
         low: 0,
         high: 0,
         len: usize::MAX,
@@ -1458,9 +1461,9 @@ mod tests {
                 .collect();
             let start = rng.random_range(0..=size);
             let end = rng.random_range(start..=size);
-            match SpanKey::of(&record, start, end) {
+            match RunKey::of(&record, start, end) {
                 Some(key) => keys.push((key, record[start..end].to_vec())),
-                None => assert!(end - start > SpanKey::MAX),
+                None => assert!(end - start > RunKey::MAX),
             }
         }
         for (a, bytes_a) in &keys {
