@@ -45,7 +45,7 @@ use csv::ByteRecord;
 pub(crate) mod records;
 
 pub use records::{Fields, Record};
-pub(crate) use records::{Out, Reader, looks_like_utf16};
+pub(crate) use records::{Handed, Out, Reader, looks_like_utf16};
 
 /// The size of each fingerprint: the file's first bytes, and the bytes just before
 /// the read offset.

@@ -41,22 +41,6 @@ pub struct Fields<'a> {
 }
 
 impl<'a> Fields<'a> {
-    /// Fields as [`Fields::parts`] gave them (copied elsewhere, say).
-    pub(crate) fn from_parts(bytes: &'a [u8], ends: &'a [usize], gap: usize, ascii: bool) -> Self {
-        Fields {
-            bytes,
-            ends,
-            gap,
-            ascii,
-        }
-    }
-
-    /// The bytes, the field ends, the gap between fields and whether every byte is
-    /// known to be ASCII: what [`Fields::from_parts`] takes back.
-    pub(crate) fn parts(&self) -> (&'a [u8], &'a [usize], usize, bool) {
-        (self.bytes, self.ends, self.gap, self.ascii)
-    }
-
     /// Whether every byte of every field is known to be ASCII (a record split in
     /// place is checked as it is split; false when not known).
     pub fn known_ascii(&self) -> bool {
@@ -136,6 +120,13 @@ impl Out for Vec<Record> {
 
 const BOM: &[u8] = b"\xef\xbb\xbf";
 
+/// Where lines handed off by [`Reader::hand_off`] start.
+#[derive(Clone, Copy, Debug, Default)]
+pub(crate) struct Handed {
+    line: u64,
+    taken: u64,
+}
+
 /// The state of reading one file from its first byte.
 #[derive(Debug)]
 pub(crate) struct Reader {
@@ -204,6 +195,52 @@ impl Reader {
     /// The header, once its record is complete.
     pub(crate) fn header(&self) -> Option<&ByteRecord> {
         self.header.as_ref()
+    }
+
+    /// Hand the whole lines at the front of `data` (the bytes that follow those
+    /// taken) to another reader (see [`Reader::for_hand_offs`]), when that reader
+    /// gives exactly what this one would (records and warnings): the header is
+    /// known, no record or run of NUL bytes is open, records may be split in place,
+    /// and the lines (up to the last LF in `data`) hold no quote. Then every record
+    /// among them is split in place and ends before the last LF, and any run of NUL
+    /// bytes between them ends there too, so this reader's only change would be the
+    /// bytes and lines taken; it takes them (see [`Reader::taken`]) and returns how
+    /// many bytes they are and where they start, for the other reader
+    /// ([`Reader::resume`]). `None`, with nothing taken, otherwise.
+    pub(crate) fn hand_off(&mut self, data: &[u8]) -> Option<(usize, Handed)> {
+        self.split_on?;
+        if self.in_record || self.nul_run.is_some() || !self.bom_checked || self.header.is_none() {
+            return None;
+        }
+        let cut = memchr::memrchr(b'\n', data)? + 1;
+        let lines = data.get(..cut)?;
+        if memchr::memchr(b'"', lines).is_some() {
+            return None;
+        }
+        let start = Handed {
+            line: self.line,
+            taken: self.taken,
+        };
+        self.taken += cut as u64;
+        self.line += memchr::memchr_iter(b'\n', lines).count() as u64;
+        Some((cut, start))
+    }
+
+    /// A reader for the lines this one hands off (see [`Reader::hand_off`]): the same
+    /// settings and header (`None` before the header is known).
+    pub(crate) fn for_hand_offs(&self) -> Option<Reader> {
+        let mut other = Reader::new(self.split_on?, self.limit);
+        other.bom_checked = true;
+        other.header = Some(self.header.clone()?);
+        other.header_bytes = self.header_bytes;
+        Some(other)
+    }
+
+    /// Read lines handed off at `start` next (between records, as they start).
+    pub(crate) fn resume(&mut self, start: Handed) {
+        self.line = start.line;
+        self.taken = start.taken;
+        self.in_record = false;
     }
 
     /// Take the bytes that follow those already taken. The header and the complete
@@ -603,7 +640,7 @@ pub(crate) fn looks_like_utf16(first: &[u8]) -> Option<&'static str> {
 
 #[cfg(test)]
 mod tests {
-    use super::{split_line, split_line_by_words};
+    use super::{Reader, Record, Warning, split_line, split_line_by_words};
     use proptest::prelude::*;
 
     /// What `split_line` must give, byte by byte.
@@ -618,6 +655,89 @@ mod tests {
             }
         }
         (None, Vec::new())
+    }
+
+    /// `text` fed to one reader in the pieces that end at `cuts`: its records and
+    /// warnings, and the reader.
+    fn read_in_pieces(
+        text: &[u8],
+        cuts: &[usize],
+        limit: u64,
+    ) -> (Vec<Record>, Vec<Warning>, Reader) {
+        let (mut reader, mut records, mut warnings) =
+            (Reader::new(b',', limit), Vec::new(), Vec::new());
+        let mut from = 0;
+        for &cut in cuts {
+            from += reader.feed(&text[from..cut], &mut records, &mut warnings);
+        }
+        reader.finish(&mut records, &mut warnings);
+        (records, warnings, reader)
+    }
+
+    /// `text` read as the one-shot read reads it: each piece up to its last LF (the
+    /// rest waits for the next piece, except after the last), handed off whenever the
+    /// reader may (to a second reader, see `Reader::for_hand_offs`), else fed to the
+    /// reader. The records and warnings of both in order, the first reader, and how
+    /// many hand-offs.
+    fn read_handing_off(
+        text: &[u8],
+        cuts: &[usize],
+        limit: u64,
+    ) -> Result<(Vec<Record>, Vec<Warning>, Reader, usize), TestCaseError> {
+        let (mut main, mut other) = (Reader::new(b',', limit), None);
+        let (mut records, mut warnings, mut handed) = (Vec::new(), Vec::new(), 0);
+        let mut from = 0;
+        for (i, &cut) in cuts.iter().enumerate() {
+            let data = &text[from..cut];
+            let whole = match i + 1 == cuts.len() {
+                true => data.len(),
+                false => data
+                    .iter()
+                    .rposition(|&b| b == b'\n')
+                    .map_or(data.len(), |i| i + 1),
+            };
+            let data = &data[..whole];
+            if other.is_none() {
+                other = main.for_hand_offs();
+            }
+            let gave = match (main.hand_off(data), other.as_mut()) {
+                (Some((n, start)), Some(reader)) => {
+                    reader.resume(start);
+                    prop_assert_eq!(reader.feed(&data[..n], &mut records, &mut warnings), n);
+                    handed += 1;
+                    n
+                }
+                (Some(_), None) => return Err(TestCaseError::fail("handed off before the header")),
+                (None, _) => 0,
+            };
+            from += gave + main.feed(&data[gave..], &mut records, &mut warnings);
+        }
+        main.finish(&mut records, &mut warnings);
+        Ok((records, warnings, main, handed))
+    }
+
+    #[test]
+    fn plain_lines_are_handed_off_and_a_quote_keeps_its_piece() {
+        let mut text = b"h1,h2\n".to_vec();
+        let mut cuts = Vec::new();
+        for i in 0..40 {
+            match i {
+                7 => text.extend_from_slice(b"\"a\nb\",1\n"),
+                _ => text.extend_from_slice(format!("r{i},{i}\n").as_bytes()),
+            }
+            cuts.push(text.len());
+        }
+        let (want, _, _) = read_in_pieces(&text, &cuts, 1 << 20);
+        let (got, _, _, handed) = read_handing_off(&text, &cuts, 1 << 20).unwrap();
+        assert_eq!(got, want);
+        assert_eq!(want.len(), 40);
+        // Every piece after the header's but the one with the quote.
+        assert_eq!(handed, 38);
+        // The quoted record spans lines 9 and 10; the next starts on line 11.
+        assert_eq!(
+            (want[8].line, got[8].line, want[8].offset),
+            (11, 11, got[8].offset)
+        );
     }
 
     /// Both splitters give what the byte-by-byte scan gives.
@@ -651,6 +771,47 @@ mod tests {
             delimiter in prop_oneof![Just(b','), Just(b';'), Just(b'\t'), Just(0u8), Just(0xacu8)],
         ) {
             agrees(&data, delimiter)?;
+        }
+
+        /// Lines handed off (see `Reader::hand_off`) and fed to the reader for hand-offs
+        /// give exactly the records (lines, offsets, fields, sizes) and warnings that one
+        /// reader fed every byte gives, and the same bytes and lines taken; whatever the text
+        /// (quotes with line ends inside, CR, CRLF, blank lines, NUL bytes, repeated
+        /// headers, a byte-order mark) and however it arrives. The pieces are cut as
+        /// the one-shot read cuts them (an incomplete line waits for the next piece).
+        #[test]
+        fn handed_off_lines_read_as_one_reader_reads_them(
+            pieces in proptest::collection::vec(
+                proptest::collection::vec(
+                    prop_oneof![
+                        4 => Just(&b"a,b\n"[..]), 4 => Just(&b"1,x\n"[..]),
+                        2 => Just(&b"22,yy,z\r\n"[..]), 1 => Just(&b"\"q\n,\"\"\",3\n"[..]),
+                        1 => Just(&b"\r"[..]), 1 => Just(&b"\n"[..]), 1 => Just(&b"\0\0"[..]),
+                        1 => Just(&b"h1,h2\n"[..]), 1 => Just(&b"\xc3\xa9,\n"[..]),
+                        1 => Just(&b"4,"[..]), 1 => Just(&b"\""[..]),
+                    ],
+                    0..12,
+                ),
+                1..12,
+            ),
+            bom in any::<bool>(),
+            limit in prop_oneof![Just(1u64 << 20), Just(12u64)],
+        ) {
+            let mut text: Vec<u8> = match bom {
+                true => b"\xef\xbb\xbfh1,h2\n".to_vec(),
+                false => b"h1,h2\n".to_vec(),
+            };
+            let mut cuts = Vec::new();
+            for piece in &pieces {
+                text.extend(piece.iter().flat_map(|p| p.iter()));
+                cuts.push(text.len());
+            }
+            let (want, want_warnings, one) = read_in_pieces(&text, &cuts, limit);
+            let (got, warnings, main, _) = read_handing_off(&text, &cuts, limit)?;
+            prop_assert_eq!(&got, &want);
+            prop_assert_eq!(&warnings, &want_warnings);
+            prop_assert_eq!((main.taken(), main.line), (one.taken(), one.line));
+            prop_assert_eq!(main.taken(), text.len() as u64);
         }
 
         /// Long lines (several blocks of thirty-two and words of eight) with at most one

@@ -1,25 +1,26 @@
 //! The one-shot read of a whole file ([`super::tally_csv_sized`]) on three threads:
 //!
-//! - the calling thread reads the bytes and splits the records; each batch of
-//!   records it either reads itself ([`Reading`], into a [`Batch`]) or, when the
-//!   helper has room, copies as split ([`RawBatch`]) for the helper to read;
-//! - the helper reads the copied records with its own [`Reading`] (its own caches,
-//!   the same registry of cells, spellings and weights);
+//! - the calling thread reads the bytes; when the helper has room, it hands a block
+//!   of whole lines to it (see [`crate::follow::Reader::hand_off`]: lines without
+//!   quotes, which split the same on any thread), and otherwise splits the records
+//!   and reads them itself ([`Reading`], into a [`Batch`]);
+//! - the helper splits the lines it is handed and reads their records with its own
+//!   [`Reading`] (its own caches, the same registry of cells, spellings and weights);
 //! - the counting thread counts the batches ([`Counting`]: the id set, the sums, the
 //!   lists) strictly in file order: it is handed, in order, either a batch or the
 //!   promise of one from the helper, and waits for that.
 //!
 //! Everything that depends on order happens on the counting thread in file order,
 //! so the tally is the one a single thread gives, bit for bit. The helper takes work
-//! only when it has room ([`RAW_BATCHES`] copies go round), so the calling thread
-//! reads the rest itself and neither waits for the other.
+//! only when it has room ([`BLOCKS`] blocks go round), so the calling thread reads
+//! the rest itself and neither waits for the other.
 
 use std::io::Read;
 use std::sync::mpsc;
 
 use super::counter::{Batch, Counting, Reading};
 use super::{Counter, Tally, TallyError};
-use crate::follow::Fields;
+use crate::follow::{Fields, Handed, Reader};
 use crate::rows::Layout;
 
 /// How many bytes a batch read asks for at a time.
@@ -28,8 +29,11 @@ const READ_BLOCK: usize = 64 << 10;
 const PIPE_BATCH: usize = 2048;
 /// Batches (or promises of one) that may wait for the counting thread.
 const QUEUED: usize = 64;
-/// Copies of records that go round between the calling thread and the helper.
-const RAW_BATCHES: usize = 16;
+/// Blocks of lines that go round between the calling thread and the helper.
+const BLOCKS: usize = 16;
+/// A block goes to the helper once it holds this many bytes (about as many
+/// records as [`PIPE_BATCH`]).
+const BLOCK_BYTES: usize = 160 << 10;
 
 /// Tally the whole input (see [`super::tally_csv_sized`]).
 pub(super) fn tally<R: Read, E>(
@@ -62,24 +66,41 @@ pub(super) fn tally<R: Read, E>(
             })
             .map_err(spawn_failed)?;
         let (to_helper, work) = mpsc::channel::<Work>();
-        let (raw_back, spare_raw) = mpsc::channel::<RawBatch>();
-        for _ in 0..RAW_BATCHES {
-            let _ = raw_back.send(RawBatch::default());
+        let (block_back, spare_blocks) = mpsc::channel::<Vec<u8>>();
+        for _ in 0..BLOCKS {
+            let _ = block_back.send(Vec::new());
         }
         thread("reading")
             .spawn_scoped(scope, move || {
-                let mut reading = None;
+                let (mut reading, mut splitting) = (None, None);
+                let mut warnings = Vec::new();
                 for work in work {
                     match work {
                         Work::Start(mine) => reading = Some(mine),
-                        Work::Read(mut raw, mut batch, promise) => {
-                            if let Some(reading) = reading.as_mut() {
-                                raw.read_into(reading, &mut batch);
+                        Work::Reader(mine) => splitting = Some(mine),
+                        Work::Split {
+                            mut lines,
+                            start,
+                            mut batch,
+                            promise,
+                        } => {
+                            if let (Some(reading), Some(reader)) =
+                                (reading.as_mut(), splitting.as_mut())
+                            {
+                                reader.resume(start);
+                                let mut into = Into {
+                                    reading,
+                                    batch: &mut batch,
+                                };
+                                // The one-shot read keeps no warnings (nor does the
+                                // calling thread's reader).
+                                reader.feed(&lines, &mut into, &mut warnings);
+                                warnings.clear();
                             }
                             // The counting thread may have stopped; then it is dropped.
                             let _ = promise.send(batch);
-                            raw.clear();
-                            let _ = raw_back.send(raw);
+                            lines.clear();
+                            let _ = block_back.send(lines);
                         }
                     }
                 }
@@ -92,7 +113,10 @@ pub(super) fn tally<R: Read, E>(
             to_counting,
             to_helper,
             spare,
-            spare_raw,
+            spare_blocks,
+            block: None,
+            block_start: Handed::default(),
+            helper_splits: false,
             problem: None,
         };
         let header = read_all(&mut sink, &mut reader, delimiter, size)?;
@@ -116,8 +140,9 @@ pub(super) fn tally<R: Read, E>(
     })
 }
 
-/// Feed the whole input through the record reader into the sink; the header, once
-/// there is one.
+/// Feed the whole input through the record reader into the sink (each block of
+/// whole lines to the helper instead when it has room and the reader may hand them
+/// off); the header, once there is one.
 fn read_all<R: Read, E, F: FnOnce(&[&str]) -> Result<Layout, E>>(
     sink: &mut Sink<E, F>,
     reader: &mut R,
@@ -125,10 +150,11 @@ fn read_all<R: Read, E, F: FnOnce(&[&str]) -> Result<Layout, E>>(
     size: Option<u64>,
 ) -> Result<Option<Vec<String>>, TallyError<E>> {
     let mut sized = size.is_none();
-    let mut parser = crate::follow::Reader::new(delimiter, crate::follow::RECORD_LIMIT);
+    let mut parser = Reader::new(delimiter, crate::follow::RECORD_LIMIT);
     let mut warnings = Vec::new();
     let mut buffer = vec![0u8; READ_BLOCK];
-    // Bytes at the front of `buffer` not taken yet (the start of a byte-order mark).
+    // Bytes at the front of `buffer` not taken yet (the start of a byte-order mark,
+    // or of a line not yet complete).
     let mut kept = 0;
     let mut head: Vec<u8> = Vec::new();
     loop {
@@ -152,7 +178,21 @@ fn read_all<R: Read, E, F: FnOnce(&[&str]) -> Result<Layout, E>>(
                 )));
             }
         }
-        let took = parser.feed(data, sink, &mut warnings);
+        // A line not yet complete waits for the next read (unless no line ends in
+        // these bytes), so that the reader is between records when the next block
+        // arrives and may hand its lines to the helper.
+        let whole = match got {
+            0 => data.len(),
+            _ => memchr::memrchr(b'\n', data).map_or(data.len(), |i| i + 1),
+        };
+        let data = data.get(..whole).unwrap_or_default();
+        // Room for the ids is set before any lines go to the helper.
+        let handed = match sized {
+            true => sink.hand_off(&mut parser, data),
+            false => 0,
+        };
+        let took =
+            handed + parser.feed(data.get(handed..).unwrap_or_default(), sink, &mut warnings);
         if got == 0 {
             parser.finish(sink, &mut warnings);
         }
@@ -161,7 +201,7 @@ fn read_all<R: Read, E, F: FnOnce(&[&str]) -> Result<Layout, E>>(
         }
         if !sized && let (Some(total), Some((_, _, filling))) = (size, sink.state.as_mut()) {
             // Room for the ids once the first block shows how many a byte holds.
-            filling.set_reserve((parser.taken(), total));
+            filling.reserve = Some((parser.taken(), total));
             sink.send();
             sized = true;
         }
@@ -186,104 +226,41 @@ enum Slot {
 enum Work {
     /// Its reading half (once the header is read).
     Start(Reading),
-    /// Records to read into the (empty) batch, which then goes to the promise.
-    Read(RawBatch, Batch, mpsc::SyncSender<Batch>),
+    /// Its reader for the lines it is handed (once, before the first lines).
+    Reader(Reader),
+    /// Whole lines to split (starting at `start`) and read into the (empty) batch,
+    /// which then goes to the promise.
+    Split {
+        lines: Vec<u8>,
+        start: Handed,
+        batch: Batch,
+        promise: mpsc::SyncSender<Batch>,
+    },
 }
 
-/// Records as split, copied for the helper to read.
-#[derive(Debug, Default)]
-struct RawBatch {
-    bytes: Vec<u8>,
-    ends: Vec<usize>,
-    records: Vec<RawRecord>,
-    reserve: Option<(u64, u64)>,
-}
-
-/// One copied record: where its bytes and field ends stop in the [`RawBatch`].
-#[derive(Debug)]
-struct RawRecord {
+/// One record into the batch: read, or noted as too long.
+fn read_one(
+    reading: &mut Reading,
+    batch: &mut Batch,
     line: u64,
-    bytes_end: usize,
-    ends_end: usize,
-    gap: usize,
-    ascii: bool,
+    fields: Fields<'_>,
     too_long: Option<u64>,
-}
-
-impl RawBatch {
-    fn push(&mut self, line: u64, fields: Fields<'_>, too_long: Option<u64>) {
-        let (bytes, ends, gap, ascii) = fields.parts();
-        self.bytes.extend_from_slice(bytes);
-        self.ends.extend_from_slice(ends);
-        self.records.push(RawRecord {
-            line,
-            bytes_end: self.bytes.len(),
-            ends_end: self.ends.len(),
-            gap,
-            ascii,
-            too_long,
-        });
-    }
-
-    /// Read every record, in order, into `batch`.
-    fn read_into(&self, reading: &mut Reading, batch: &mut Batch) {
-        let (mut bytes_start, mut ends_start) = (0, 0);
-        for record in &self.records {
-            let bytes = self.bytes.get(bytes_start..record.bytes_end);
-            let ends = self.ends.get(ends_start..record.ends_end);
-            match record.too_long {
-                Some(size) => batch.push_too_long(record.line, size),
-                None => {
-                    let fields = Fields::from_parts(
-                        bytes.unwrap_or_default(),
-                        ends.unwrap_or_default(),
-                        record.gap,
-                        record.ascii,
-                    );
-                    reading.read(fields, record.line, batch);
-                }
-            }
-            (bytes_start, ends_start) = (record.bytes_end, record.ends_end);
-        }
-        batch.reserve = self.reserve;
-    }
-
-    fn clear(&mut self) {
-        self.bytes.clear();
-        self.ends.clear();
-        self.records.clear();
-        self.reserve = None;
+) {
+    match too_long {
+        Some(size) => batch.push_too_long(line, size),
+        None => reading.read(fields, line, batch),
     }
 }
 
-/// The batch being filled on the calling thread.
-enum Filling {
-    /// Read here.
-    InPlace(Batch),
-    /// Copied for the helper.
-    Raw(RawBatch),
+/// Where the helper's reader hands its records: into the helper's batch.
+struct Into<'a> {
+    reading: &'a mut Reading,
+    batch: &'a mut Batch,
 }
 
-impl Filling {
-    fn len(&self) -> usize {
-        match self {
-            Filling::InPlace(batch) => batch.len(),
-            Filling::Raw(raw) => raw.records.len(),
-        }
-    }
-
-    fn reserve(&self) -> Option<(u64, u64)> {
-        match self {
-            Filling::InPlace(batch) => batch.reserve,
-            Filling::Raw(raw) => raw.reserve,
-        }
-    }
-
-    fn set_reserve(&mut self, reserve: (u64, u64)) {
-        match self {
-            Filling::InPlace(batch) => batch.reserve = Some(reserve),
-            Filling::Raw(raw) => raw.reserve = Some(reserve),
-        }
+impl crate::follow::Out for Into<'_> {
+    fn record(&mut self, line: u64, _offset: u64, fields: Fields<'_>, too_long: Option<u64>) {
+        read_one(self.reading, self.batch, line, fields, too_long);
     }
 }
 
@@ -291,55 +268,98 @@ impl Filling {
 struct Sink<E, F> {
     layout_for: Option<F>,
     /// The header, the reading half and the batch being filled.
-    state: Option<(Vec<String>, Reading, Filling)>,
+    state: Option<(Vec<String>, Reading, Batch)>,
     /// Where the counting half and the tally go once the header is read.
     start: Option<mpsc::SyncSender<(Counting, Tally)>>,
     to_counting: mpsc::SyncSender<Slot>,
     to_helper: mpsc::Sender<Work>,
     /// Batches the counting thread has emptied, to fill again.
     spare: mpsc::Receiver<Batch>,
-    /// Copies the helper has read: while there is one, the next batch goes to it.
-    spare_raw: mpsc::Receiver<RawBatch>,
+    /// Blocks the helper has read: while there is one, lines may go to it.
+    spare_blocks: mpsc::Receiver<Vec<u8>>,
+    /// A block taken from the spares and not sent yet: empty, or being filled
+    /// with lines that start at `block_start`.
+    block: Option<Vec<u8>>,
+    block_start: Handed,
+    /// Whether the helper has its reader (see [`Work::Reader`]).
+    helper_splits: bool,
     problem: Option<TallyError<E>>,
 }
 
 impl<E, F> Sink<E, F> {
-    /// An empty batch to fill next: a copy for the helper if it has room, else one
-    /// to read here.
-    fn next_filling(&self) -> Filling {
-        match self.spare_raw.try_recv() {
-            Ok(raw) => Filling::Raw(raw),
-            Err(_) => Filling::InPlace(self.spare.try_recv().unwrap_or_default()),
-        }
-    }
-
     /// Send the batch being filled (if it holds anything) on its way.
     fn send(&mut self) {
-        match self.state.as_ref() {
-            Some((_, _, filling)) if filling.len() > 0 || filling.reserve().is_some() => {}
-            _ => return,
-        }
-        let next = self.next_filling();
         let Some((_, _, filling)) = self.state.as_mut() else {
             return;
         };
-        let slot = match std::mem::replace(filling, next) {
-            Filling::InPlace(batch) => Slot::Ready(batch),
-            Filling::Raw(raw) => {
-                let (promise, pending) = mpsc::sync_channel(1);
-                let batch = self.spare.try_recv().unwrap_or_default();
-                if self
-                    .to_helper
-                    .send(Work::Read(raw, batch, promise))
-                    .is_err()
-                {
-                    self.stopped("helper");
-                    return;
-                }
-                Slot::Pending(pending)
-            }
+        if filling.len() == 0 && filling.reserve.is_none() {
+            return;
+        }
+        let next = self.spare.try_recv().unwrap_or_default();
+        let batch = std::mem::replace(filling, next);
+        if self.to_counting.send(Slot::Ready(batch)).is_err() {
+            self.stopped("counting");
+        }
+    }
+
+    /// Hand the whole lines at the front of `data` to the helper when it has room
+    /// and `parser` may hand them off (see [`Reader::hand_off`]); how many bytes
+    /// went. They join the block being filled (after the batch being filled, which
+    /// goes first), which goes once it holds [`BLOCK_BYTES`]; when these lines
+    /// cannot go, the block goes at once, as its lines come before them.
+    fn hand_off(&mut self, parser: &mut Reader, data: &[u8]) -> usize {
+        if self.state.is_none() {
+            return 0;
+        }
+        let Some(mut lines) = self
+            .block
+            .take()
+            .or_else(|| self.spare_blocks.try_recv().ok())
+        else {
+            return 0;
         };
-        if self.to_counting.send(slot).is_err() {
+        if !self.helper_splits {
+            let sent = parser
+                .for_hand_offs()
+                .is_some_and(|reader| self.to_helper.send(Work::Reader(reader)).is_ok());
+            if !sent {
+                self.block = Some(lines);
+                return 0;
+            }
+            self.helper_splits = true;
+        }
+        let Some((cut, start)) = parser.hand_off(data) else {
+            match lines.is_empty() {
+                true => self.block = Some(lines),
+                false => self.send_block(lines),
+            }
+            return 0;
+        };
+        if lines.is_empty() {
+            self.send();
+            self.block_start = start;
+        }
+        lines.extend_from_slice(data.get(..cut).unwrap_or_default());
+        match lines.len() >= BLOCK_BYTES {
+            true => self.send_block(lines),
+            false => self.block = Some(lines),
+        }
+        cut
+    }
+
+    /// Send a block of lines to the helper, and the promise of its batch on.
+    fn send_block(&mut self, lines: Vec<u8>) {
+        let (promise, pending) = mpsc::sync_channel(1);
+        let batch = self.spare.try_recv().unwrap_or_default();
+        let work = Work::Split {
+            lines,
+            start: self.block_start,
+            batch,
+            promise,
+        };
+        if self.to_helper.send(work).is_err() {
+            self.stopped("helper");
+        } else if self.to_counting.send(Slot::Pending(pending)).is_err() {
             self.stopped("counting");
         }
     }
@@ -382,7 +402,7 @@ impl<E, F: FnOnce(&[&str]) -> Result<Layout, E>> crate::follow::Out for Sink<E, 
                 if let Some(start) = self.start.take() {
                     let _ = start.send((counting, tally));
                 }
-                let filling = self.next_filling();
+                let filling = self.spare.try_recv().unwrap_or_default();
                 self.state = Some((names, reading, filling));
             }
             Err(e) => self.problem = Some(TallyError::Layout(e)),
@@ -390,19 +410,11 @@ impl<E, F: FnOnce(&[&str]) -> Result<Layout, E>> crate::follow::Out for Sink<E, 
     }
 
     fn record(&mut self, line: u64, _offset: u64, fields: Fields<'_>, too_long: Option<u64>) {
-        let Some((_, reading, filling)) = self.state.as_mut() else {
+        let Some((_, reading, batch)) = self.state.as_mut() else {
             return;
         };
-        match (filling, too_long) {
-            (Filling::InPlace(batch), Some(size)) => batch.push_too_long(line, size),
-            (Filling::InPlace(batch), None) => reading.read(fields, line, batch),
-            (Filling::Raw(raw), _) => raw.push(line, fields, too_long),
-        }
-        if self
-            .state
-            .as_ref()
-            .is_some_and(|(_, _, f)| f.len() >= PIPE_BATCH)
-        {
+        read_one(reading, batch, line, fields, too_long);
+        if batch.len() >= PIPE_BATCH {
             self.send();
         }
     }
