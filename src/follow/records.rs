@@ -199,24 +199,16 @@ impl Reader {
 
     /// Hand the whole lines at the front of `data` (the bytes that follow those
     /// taken) to another reader (see [`Reader::for_hand_offs`]), when that reader
-    /// gives exactly what this one would (records and warnings): the header is
-    /// known, no record or run of NUL bytes is open, records may be split in place,
-    /// and the lines (up to the last LF in `data`) hold no quote. Then every record
-    /// among them is split in place and ends before the last LF, and any run of NUL
-    /// bytes between them ends there too, so this reader's only change would be the
-    /// bytes and lines taken; it takes them (see [`Reader::taken`]) and returns how
-    /// many bytes they are and where they start, for the other reader
-    /// ([`Reader::resume`]). `None`, with nothing taken, otherwise.
+    /// gives exactly what this one would (records and warnings): when there are
+    /// [`Reader::whole_lines`]. Every record among them is split in place and ends
+    /// before their last LF, and any run of NUL bytes between them ends there too,
+    /// so this reader's only change would be the bytes and lines taken; it takes
+    /// them (see [`Reader::taken`]) and returns how many bytes they are and where
+    /// they start, for the other reader ([`Reader::resume`]). `None`, with nothing
+    /// taken, otherwise.
     pub(crate) fn hand_off(&mut self, data: &[u8]) -> Option<(usize, Handed)> {
-        self.split_on?;
-        if self.in_record || self.nul_run.is_some() || !self.bom_checked || self.header.is_none() {
-            return None;
-        }
-        let cut = memchr::memrchr(b'\n', data)? + 1;
+        let cut = self.whole_lines(data)?;
         let lines = data.get(..cut)?;
-        if memchr::memchr(b'"', lines).is_some() {
-            return None;
-        }
         let start = Handed {
             line: self.line,
             taken: self.taken,
@@ -224,6 +216,20 @@ impl Reader {
         self.taken += cut as u64;
         self.line += memchr::memchr_iter(b'\n', lines).count() as u64;
         Some((cut, start))
+    }
+
+    /// How many bytes at the front of `data` (the bytes that follow those taken) are
+    /// whole lines that hold no quote: up to the last LF before any quote. `None`
+    /// unless the header is known, no record or run of NUL bytes is open, records
+    /// may be split in place and there is such an LF. Every record among those
+    /// lines splits in place (see [`Reader::split_in_place`]).
+    fn whole_lines(&self, data: &[u8]) -> Option<usize> {
+        self.split_on?;
+        if self.in_record || self.nul_run.is_some() || !self.bom_checked || self.header.is_none() {
+            return None;
+        }
+        let before = memchr::memchr(b'"', data).map_or(data, |q| data.get(..q).unwrap_or_default());
+        Some(memchr::memrchr(b'\n', before)? + 1)
     }
 
     /// A reader for the lines this one hands off (see [`Reader::hand_off`]): the same

@@ -305,8 +305,9 @@ impl<E, F> Sink<E, F> {
     /// Hand the whole lines at the front of `data` to the helper when it has room
     /// and `parser` may hand them off (see [`Reader::hand_off`]); how many bytes
     /// went. They join the block being filled (after the batch being filled, which
-    /// goes first), which goes once it holds [`BLOCK_BYTES`]; when these lines
-    /// cannot go, the block goes at once, as its lines come before them.
+    /// goes first), which goes once it holds [`BLOCK_BYTES`] or when bytes of
+    /// `data` are left for the calling thread; when these lines cannot go, the
+    /// block goes at once, as its lines come before them.
     fn hand_off(&mut self, parser: &mut Reader, data: &[u8]) -> usize {
         if self.state.is_none() {
             return 0;
@@ -340,7 +341,8 @@ impl<E, F> Sink<E, F> {
             self.block_start = start;
         }
         lines.extend_from_slice(data.get(..cut).unwrap_or_default());
-        match lines.len() >= BLOCK_BYTES {
+        // The block goes when full, or before the calling thread reads the rest.
+        match lines.len() >= BLOCK_BYTES || cut < data.len() {
             true => self.send_block(lines),
             false => self.block = Some(lines),
         }
