@@ -77,8 +77,9 @@ struct Staged {
     /// the hour's first second).
     run: Option<(i64, u64, i64)>,
     /// The first and the latest time counted and not yet in `cell.arrivals`, as
-    /// (floor second, nanoseconds) parts (see [`Entry::parts_of`]).
-    span: Option<((i64, i32), (i64, i32))>,
+    /// numbers that sort as the times do (see [`Entry::order_of`]); none counted
+    /// while the first is above the latest ([`Staged::NO_SPAN`]).
+    span: (i128, i128),
 }
 
 impl Staged {
@@ -94,7 +95,7 @@ impl Staged {
             counts: vec![Vec::new(); measures],
             combined: vec![0; combinations],
             run: None,
-            span: None,
+            span: Staged::NO_SPAN,
         }
     }
 
@@ -142,11 +143,17 @@ impl Staged {
         }
     }
 
+    /// A span with no time in it: any time's number is below the first and above the
+    /// latest.
+    const NO_SPAN: (i128, i128) = (i128::MAX, i128::MIN);
+
     /// Move the first and latest times into the cell's arrivals.
     fn flush_span(&mut self) {
-        let Some((first, latest)) = self.span.take() else {
+        let (first, latest) = std::mem::replace(&mut self.span, Staged::NO_SPAN);
+        if first > latest {
             return;
-        };
+        }
+        let (first, latest) = (Entry::parts_of_order(first), Entry::parts_of_order(latest));
         let arrivals = &mut self.cell.arrivals;
         if let Some(first) = Entry::timestamp_of(first) {
             arrivals.first = Some(arrivals.first.map_or(first, |f| f.min(first)));
@@ -292,14 +299,19 @@ struct Entry {
     id_end: u32,
     /// The time's nanoseconds within its second, or [`NONE_NANOS`] without a time.
     nanos: i32,
-    kind: u32,
+    kind: u16,
+    /// The record's answers as one [`combination`], or [`NO_COMBINATION`] (more
+    /// than [`COMBINED_MEASURES`] measures).
+    combined: u16,
 }
 
 /// Kinds of [`Entry`]: read in place; the next of the batch's `records`, counted
 /// record by record; longer than the limit.
-const IN_PLACE: u32 = 0;
-const RECORD: u32 = 1;
-const TOO_LONG: u32 = 2;
+const IN_PLACE: u16 = 0;
+const RECORD: u16 = 1;
+const TOO_LONG: u16 = 2;
+/// "Not counted as a combination", in an [`Entry`].
+const NO_COMBINATION: u16 = u16::MAX;
 /// "Not there", in an [`Entry`]'s numbers.
 const NONE: u32 = u32::MAX;
 const NONE_NANOS: i32 = i32::MIN;
@@ -318,6 +330,7 @@ impl Entry {
             id_end: NONE,
             nanos: NONE_NANOS,
             kind: IN_PLACE,
+            combined: NO_COMBINATION,
         }
     }
 
@@ -337,6 +350,17 @@ impl Entry {
     /// The time whose [`Entry::parts_of`] these are. Parts sort as their times do.
     fn timestamp_of((second, nanos): (i64, i32)) -> Option<Timestamp> {
         Timestamp::new(second, nanos).ok()
+    }
+
+    /// Parts (nanoseconds 0 or more) as one number that sorts as they do, compared
+    /// in one step: the second above 32 bits of nanoseconds.
+    fn order_of((second, nanos): (i64, i32)) -> i128 {
+        i128::from(second) << 32 | i128::from(nanos)
+    }
+
+    /// The parts whose [`Entry::order_of`] this is.
+    fn parts_of_order(order: i128) -> (i64, i32) {
+        ((order >> 32) as i64, (order & 0xffff_ffff) as i32)
     }
 }
 
@@ -396,7 +420,7 @@ pub(crate) struct Reading {
     /// (cell, spelling) by the cell's run; the answers, in measure order, by the
     /// measures' run (runs with an unexpected answer are not kept).
     cells_by_run: ByPlace<RunKey, (u32, u32), CELL_RUNS>,
-    answers_by_run: ByPlace<RunKey, [Answer; RUN_MEASURES], ANSWER_RUNS>,
+    answers_by_run: ByPlace<RunKey, ([Answer; RUN_MEASURES], u16), ANSWER_RUNS>,
     /// The hour of the last time in the usual form (see [`time_parts`]).
     hour: Hour,
 }
@@ -424,7 +448,7 @@ impl Reading {
             answer_run: column_range(layout.measures.iter().map(|m| m.column))
                 .filter(|_| layout.measures.len() <= RUN_MEASURES),
             cells_by_run: ByPlace::new((0, 0)),
-            answers_by_run: ByPlace::new([Answer::Missing; RUN_MEASURES]),
+            answers_by_run: ByPlace::new(([Answer::Missing; RUN_MEASURES], NO_COMBINATION)),
             hour: None,
         }
     }
@@ -532,11 +556,12 @@ impl Reading {
         // The answers: first by the run of bytes of the measures' columns together.
         let answer_run = RunKey::of_columns(&fields, self.answer_run);
         let measures = self.layout.measures.len();
-        if let Some(answers) = answer_run
+        if let Some((answers, combined)) = answer_run
             .and_then(|run| self.answers_by_run.get(run))
-            .and_then(|answers| answers.get(..measures))
+            .and_then(|(answers, combined)| Some((answers.get(..measures)?, *combined)))
         {
             batch.answers.extend_from_slice(answers);
+            entry.combined = combined;
             return Some(entry);
         }
         let first_answer = batch.answers.len();
@@ -564,17 +589,18 @@ impl Reading {
             batch.answers.push(answer);
         }
         entry.unexpected = unexpected;
+        let read = batch.answers.get(first_answer..).unwrap_or_default();
+        if measures <= COMBINED_MEASURES {
+            entry.combined = combination(read) as u16;
+        }
         if let Some(run) = answer_run
             && unexpected == 0
         {
             let mut answers = [Answer::Missing; RUN_MEASURES];
-            for (kept, &answer) in answers
-                .iter_mut()
-                .zip(batch.answers.get(first_answer..).unwrap_or_default())
-            {
+            for (kept, &answer) in answers.iter_mut().zip(read) {
                 *kept = answer;
             }
-            self.answers_by_run.put(run, answers);
+            self.answers_by_run.put(run, (answers, entry.combined));
         }
         Some(entry)
     }
@@ -722,8 +748,8 @@ impl Counting {
             tally.ids.prefetch(hash);
         }
         let mut hashes = batch.hashes.iter().enumerate();
-        // The newest time counted in the batch, as parts.
-        let mut newest: Option<(i64, i32)> = None;
+        // The newest time counted in the batch, as its number (none: the least).
+        let mut newest = i128::MIN;
         for read in &batch.entries {
             let line = read.line;
             match read.kind {
@@ -793,14 +819,15 @@ impl Counting {
                 };
             }
             staged.cell.responses += 1;
-            let answers = batch.answers.get(mine).unwrap_or_default();
-            let combined = match weight_index {
-                Some(0) => staged.combined.get_mut(combination(answers)),
+            let combined = match (weight_index, read.combined) {
+                (_, NO_COMBINATION) => None,
+                (Some(0), code) => staged.combined.get_mut(usize::from(code)),
                 _ => None,
             };
             if let Some(count) = combined {
                 *count += 1;
             } else {
+                let answers = batch.answers.get(mine).unwrap_or_default();
                 for (m, &answer) in answers.iter().enumerate() {
                     let counted = match (answer, weight_index) {
                         (Answer::Yes | Answer::No, Some(i)) => {
@@ -855,15 +882,15 @@ impl Counting {
                     staged.run = Some((hour, 1, start));
                 }
             }
-            // Kept as parts until the flush (or the batch's end): no `Timestamp` per record.
-            let parts = (read.second, read.nanos);
-            staged.span = Some(match staged.span {
-                None => (parts, parts),
-                Some((first, latest)) => (first.min(parts), latest.max(parts)),
-            });
-            newest = newest.max(Some(parts));
+            // Kept as numbers until the flush (or the batch's end): no `Timestamp` per
+            // record.
+            let order = Entry::order_of((read.second, read.nanos));
+            staged.span = (staged.span.0.min(order), staged.span.1.max(order));
+            newest = newest.max(order);
         }
-        if let Some(t) = newest.and_then(Entry::timestamp_of) {
+        if newest > i128::MIN
+            && let Some(t) = Entry::timestamp_of(Entry::parts_of_order(newest))
+        {
             tally.newest = max_option(tally.newest, Some(t));
         }
         if let Some((read, total)) = batch.reserve {
@@ -1502,9 +1529,9 @@ mod tests {
     }
 
     /// A time kept in an entry as (floor second, nanoseconds) parts comes back the
-    /// same, before 1970 and after, with and without a fraction; parts sort as their
-    /// times do (the counting half's first, latest and newest rely on it); an entry
-    /// without a time is marked so.
+    /// same, before 1970 and after, with and without a fraction; parts, and the
+    /// numbers made of them, sort as their times do (the counting half's first,
+    /// latest and newest rely on it); an entry without a time is marked so.
     #[test]
     fn times_in_entries_come_back_the_same() {
         let mut rng = ChaCha8Rng::seed_from_u64(3);
@@ -1537,11 +1564,16 @@ mod tests {
             let parts = Entry::parts_of(*t);
             assert!((0..1_000_000_000).contains(&parts.1), "{t}");
             assert_eq!(Entry::timestamp_of(parts), Some(*t), "{t}");
+            let order = Entry::order_of(parts);
+            assert_eq!(Entry::parts_of_order(order), parts, "{t}");
+            assert!(order > i128::MIN && order < i128::MAX, "{t}");
         }
         for a in times.iter().rev().take(60) {
             for b in &times {
+                let (pa, pb) = (Entry::parts_of(*a), Entry::parts_of(*b));
+                assert_eq!(pa.cmp(&pb), a.cmp(b), "{a} {b}");
                 assert_eq!(
-                    Entry::parts_of(*a).cmp(&Entry::parts_of(*b)),
+                    Entry::order_of(pa).cmp(&Entry::order_of(pb)),
                     a.cmp(b),
                     "{a} {b}"
                 );
