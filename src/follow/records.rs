@@ -198,9 +198,9 @@ impl Reader {
     }
 
     /// Hand the whole lines at the front of `data` (the bytes that follow those
-    /// taken) to another reader (see [`Reader::for_hand_offs`]), when that reader
-    /// gives exactly what this one would (records and warnings): when there are
-    /// [`Reader::whole_lines`]. Every record among them is split in place and ends
+    /// taken) to another reader (see [`Reader::for_hand_offs`]), which gives exactly
+    /// what this one would (records and warnings), when there are such lines (see
+    /// [`Reader::whole_lines`]). Every record among them is split in place and ends
     /// before their last LF, and any run of NUL bytes between them ends there too,
     /// so this reader's only change would be the bytes and lines taken; it takes
     /// them (see [`Reader::taken`]) and returns how many bytes they are and where

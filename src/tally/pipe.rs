@@ -88,7 +88,7 @@ pub(super) fn tally<R: Read, E>(
                                 (reading.as_mut(), splitting.as_mut())
                             {
                                 reader.resume(start);
-                                let mut into = Into {
+                                let mut into = IntoBatch {
                                     reading,
                                     batch: &mut batch,
                                 };
@@ -253,12 +253,12 @@ fn read_one(
 }
 
 /// Where the helper's reader hands its records: into the helper's batch.
-struct Into<'a> {
+struct IntoBatch<'a> {
     reading: &'a mut Reading,
     batch: &'a mut Batch,
 }
 
-impl crate::follow::Out for Into<'_> {
+impl crate::follow::Out for IntoBatch<'_> {
     fn record(&mut self, line: u64, _offset: u64, fields: Fields<'_>, too_long: Option<u64>) {
         read_one(self.reading, self.batch, line, fields, too_long);
     }
