@@ -421,8 +421,8 @@ pub(crate) struct Reading {
     /// measures' run (runs with an unexpected answer are not kept).
     cells_by_run: ByPlace<RunKey, (u32, u32), CELL_RUNS>,
     answers_by_run: ByPlace<RunKey, ([Answer; RUN_MEASURES], u16), ANSWER_RUNS>,
-    /// The hour of the last time in the usual form (see [`time_parts`]).
-    hour: Hour,
+    /// What the last times in the usual form leave for the next (see [`time_parts`]).
+    clock: Clock,
 }
 
 impl Reading {
@@ -449,7 +449,7 @@ impl Reading {
                 .filter(|_| layout.measures.len() <= RUN_MEASURES),
             cells_by_run: ByPlace::new((0, 0)),
             answers_by_run: ByPlace::new(([Answer::Missing; RUN_MEASURES], NO_COMBINATION)),
-            hour: None,
+            clock: Clock::default(),
         }
     }
 
@@ -513,7 +513,7 @@ impl Reading {
         };
         let time = match slots.time.map(value) {
             None | Some(b"") => None,
-            Some(raw) => Some(time_parts(&mut self.hour, raw)?),
+            Some(raw) => Some(time_parts(&mut self.clock, raw)?),
         };
         // The cell, from its raw values: (cell, spelling). First the run of bytes of
         // its columns together (a record split in place), then short values of a few
@@ -1041,10 +1041,19 @@ impl Weights {
     }
 }
 
-/// The last hour of a time in the usual form: its `YYYY-MM-DDTHH` as two words (see
-/// [`usual_form`]), the second it starts at and whether every time within it is one
-/// `jiff` accepts (`None` when `jiff` refuses its start).
-type Hour = Option<((u64, u64), Option<(i64, bool)>)>;
+/// Where an hour or a minute starts: its first second, and whether every time in
+/// its hour is one `jiff` accepts; `None` when `jiff` refuses the hour's start.
+type Start = Option<(i64, bool)>;
+
+/// What the last times in the usual form (see [`usual_form`]) leave for the next.
+#[derive(Debug, Default)]
+struct Clock {
+    /// The last hour: its `YYYY-MM-DDTHH` as two words, and where it starts.
+    hour: Option<((u64, u64), Start)>,
+    /// The last time's first 16 bytes (`YYYY-MM-DDTHH:MM`), and where its minute
+    /// starts.
+    minute: Option<([u8; 16], Start)>,
+}
 
 /// The time in `raw` (trimmed, not blank) as (floor second, nanoseconds), the parts
 /// [`Entry::parts_of`] gives, or `None` when it is not a valid time: exactly what
@@ -1052,14 +1061,21 @@ type Hour = Option<((u64, u64), Option<(i64, bool)>)>;
 /// seconds 00–59, one to nine digits of fraction) is computed from the start of its
 /// hour, which `jiff` parses once per hour (so a date `jiff` refuses is refused here
 /// too), without making a `Timestamp` unless the hour reaches past the last time
-/// `jiff` accepts; any other form goes to `jiff` whole.
-fn time_parts(hour: &mut Hour, raw: &[u8]) -> Option<(i64, i32)> {
-    let Some((prefix, within, nanos)) = usual_form(raw) else {
+/// `jiff` accepts; any other form goes to `jiff` whole. A time whose first 16 bytes
+/// are the last one's (the same minute, already checked) has only its seconds read.
+fn time_parts(clock: &mut Clock, raw: &[u8]) -> Option<(i64, i32)> {
+    if let (Some((head, start)), Some(first)) = (&clock.minute, raw.first_chunk::<16>())
+        && head == first
+        && let Some((second, nanos)) = seconds_part(raw)
+    {
+        return in_hour(*start, second, nanos);
+    }
+    let Some((prefix, minute, second, nanos)) = usual_form(raw) else {
         let t = std::str::from_utf8(raw).ok()?.parse::<Timestamp>().ok()?;
         return Some(Entry::parts_of(t));
     };
-    let start = match hour {
-        Some((p, start)) if *p == prefix => *start,
+    let start = match clock.hour {
+        Some((p, start)) if p == prefix => start,
         _ => {
             let mut text = raw.get(..13)?.to_vec();
             text.extend_from_slice(b":00:00Z");
@@ -1070,25 +1086,32 @@ fn time_parts(hour: &mut Hour, raw: &[u8]) -> Option<(i64, i32)> {
                     let s = t.as_second();
                     (s, Timestamp::new(s + 3599, 999_999_999).is_ok())
                 });
-            *hour = Some((prefix, start));
+            clock.hour = Some((prefix, start));
             start
         }
     };
+    let start = start.map(|(s, whole)| (s + minute, whole));
+    if let Some(first) = raw.first_chunk::<16>() {
+        clock.minute = Some((*first, start));
+    }
+    in_hour(start, second, nanos)
+}
+
+/// The parts of the time `second` seconds and `nanos` nanoseconds after a minute's
+/// `start`.
+fn in_hour(start: Start, second: i64, nanos: i32) -> Option<(i64, i32)> {
     match start? {
         // With nanoseconds of 0 or more, (second, nanoseconds) are already the parts.
-        (s, true) => Some((s + within, nanos)),
-        (s, false) => Timestamp::new(s + within, nanos).ok().map(Entry::parts_of),
+        (s, true) => Some((s + second, nanos)),
+        (s, false) => Timestamp::new(s + second, nanos).ok().map(Entry::parts_of),
     }
 }
 
 /// `YYYY-MM-DDTHH:MM:SS[.f…]Z` split into its hour (bytes 0–7 and 5–12 as two words),
-/// the seconds within the hour and the nanoseconds, when `b` has exactly that form with
-/// HH ≤ 23, MM ≤ 59, SS ≤ 59 and one to nine digits after a `.`.
-fn usual_form(b: &[u8]) -> Option<((u64, u64), i64, i32)> {
-    let len = b.len();
-    if len < 20 || len == 21 || len > 30 || b.last() != Some(&b'Z') {
-        return None;
-    }
+/// the minute's first second within the hour, the seconds within the minute and the
+/// nanoseconds, when `b` has exactly that form with HH ≤ 23, MM ≤ 59, SS ≤ 59 and one
+/// to nine digits after a `.`.
+fn usual_form(b: &[u8]) -> Option<((u64, u64), i64, i64, i32)> {
     let word = |i: usize| {
         b.get(i..i + 8)
             .and_then(|w| w.try_into().ok())
@@ -1103,9 +1126,31 @@ fn usual_form(b: &[u8]) -> Option<((u64, u64), i64, i32)> {
         let x = w ^ u64::from_le_bytes(*template);
         (x | x.wrapping_add(u64::from_le_bytes(add))) & 0x8080_8080_8080_8080 == 0
     };
-    // Bytes 0–7, 8–15 and 11–18.
-    let (w0, w1, w2) = (word(0)?, word(8)?, word(11)?);
-    if !(fits(w0, b"0000-00-") && fits(w1, b"00T00:00") && fits(w2, b"00:00:00")) {
+    // Bytes 0–7 and 8–15; the rest is `seconds_part`'s.
+    let (w0, w1) = (word(0)?, word(8)?);
+    if !(fits(w0, b"0000-00-") && fits(w1, b"00T00:00")) {
+        return None;
+    }
+    let (second, nanos) = seconds_part(b)?;
+    let digit = |i: usize| b.get(i).map_or(0, |&d| i64::from(d.wrapping_sub(b'0')));
+    let two = |i: usize| digit(i) * 10 + digit(i + 1);
+    let (hh, mm) = (two(11), two(14));
+    if hh > 23 || mm > 59 {
+        return None;
+    }
+    Some(((w0, word(5)?), mm * 60, second, nanos))
+}
+
+/// From byte 16 of a time in the usual form, `:SS[.f…]Z` (SS ≤ 59, one to nine
+/// digits after a `.`, nothing after the `Z`): the seconds and the nanoseconds.
+fn seconds_part(b: &[u8]) -> Option<(i64, i32)> {
+    let len = b.len();
+    if len < 20 || len == 21 || len > 30 || b.last() != Some(&b'Z') || b.get(16) != Some(&b':') {
+        return None;
+    }
+    let digit = |i: usize| b.get(i).map(|&d| d.wrapping_sub(b'0')).filter(|&d| d <= 9);
+    let second = i64::from(digit(17)?) * 10 + i64::from(digit(18)?);
+    if second > 59 {
         return None;
     }
     let fraction = b.get(19..len - 1)?;
@@ -1136,13 +1181,7 @@ fn usual_form(b: &[u8]) -> Option<((u64, u64), i64, i32)> {
         }
         _ => return None,
     };
-    let digit = |i: usize| b.get(i).map_or(0, |&d| i64::from(d.wrapping_sub(b'0')));
-    let two = |i: usize| digit(i) * 10 + digit(i + 1);
-    let (hh, mm, ss) = (two(11), two(14), two(17));
-    if hh > 23 || mm > 59 || ss > 59 {
-        return None;
-    }
-    Some(((w0, word(5)?), mm * 60 + ss, nanos))
+    Some((second, nanos))
 }
 
 /// A record's answers as one number: two bits each (yes 0, no 1, missing 2,
@@ -1587,7 +1626,7 @@ mod tests {
         // Every hour of a few days across a month end and a leap day, every minute
         // and second pattern, and near-misses that jiff must decide.
         let mut rng = ChaCha8Rng::seed_from_u64(11);
-        let mut hour = None;
+        let mut clock = Clock::default();
         let mut texts = Vec::new();
         for day in [
             "2024-02-28",
@@ -1617,14 +1656,16 @@ mod tests {
         );
         for text in &texts {
             let want = text.parse::<Timestamp>().ok().map(Entry::parts_of);
-            assert_eq!(time_parts(&mut hour, text.as_bytes()), want, "{text}");
+            assert_eq!(time_parts(&mut clock, text.as_bytes()), want, "{text}");
         }
     }
 
     /// Times in the usual form and near it, one byte changed (to a digit, a
     /// separator, a letter, a byte beyond ASCII, anything), cut or lengthened, with
     /// fractions of every length, in hours next to each other and near the ends of
-    /// `jiff`'s range: the parts are jiff's, and `None` where jiff refuses.
+    /// `jiff`'s range, half of them in the minute of the time before (so that the
+    /// last minute's shortcut meets them too): the parts are jiff's, and `None`
+    /// where jiff refuses.
     #[test]
     fn times_one_byte_off_the_usual_form_equal_jiffs_reading() {
         let mut rng = ChaCha8Rng::seed_from_u64(12);
@@ -1636,15 +1677,15 @@ mod tests {
             "9999-12-31",
         ];
         let bytes = b"0123456789-T:.Z+ zt\x00\x7f\x80\xff/;";
-        let mut hour = None;
-        let mut refused = 0;
+        let mut clock = Clock::default();
+        let (mut refused, mut same_minute) = (0, 0);
+        let (mut day, mut h, mut m) = (days[0], 20, 0);
         for _ in 0..60_000 {
-            let day = days[rng.random_range(0..days.len())];
-            let (h, m, s) = (
-                rng.random_range(20..24),
-                rng.random_range(0..60),
-                rng.random_range(0..60),
-            );
+            if rng.random_range(0..2) == 0 {
+                day = days[rng.random_range(0..days.len())];
+                (h, m) = (rng.random_range(20..24), rng.random_range(0..60));
+            }
+            let s = rng.random_range(0..60);
             let digits = rng.random_range(0..=10);
             let fraction: String = (0..digits)
                 .map(|_| char::from(b'0' + rng.random_range(0..10)))
@@ -1675,14 +1716,20 @@ mod tests {
                 .and_then(|t| t.parse::<Timestamp>().ok())
                 .map(Entry::parts_of);
             refused += usize::from(want.is_none());
+            same_minute += usize::from(
+                clock
+                    .minute
+                    .is_some_and(|(head, _)| text.get(..16) == Some(&head[..])),
+            );
             assert_eq!(
-                time_parts(&mut hour, &text),
+                time_parts(&mut clock, &text),
                 want,
                 "{}",
                 String::from_utf8_lossy(&text)
             );
         }
-        // Both answers are common enough to be tested.
+        // Both answers, and the last minute's shortcut, are common enough to be tested.
         assert!((10_000..50_000).contains(&refused), "{refused}");
+        assert!(same_minute > 5_000, "{same_minute}");
     }
 }
