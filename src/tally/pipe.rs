@@ -65,44 +65,42 @@ pub(super) fn tally<R: Read, E>(
                 Some(tally)
             })
             .map_err(spawn_failed)?;
-        let (to_helper, work) = mpsc::channel::<Work>();
+        let (to_helper, work) = mpsc::channel::<Split>();
+        let (start_helper, helper_started) = mpsc::sync_channel::<(Reading, Reader)>(1);
         let (block_back, spare_blocks) = mpsc::channel::<Vec<u8>>();
         for _ in 0..BLOCKS {
             let _ = block_back.send(Vec::new());
         }
         thread("reading")
             .spawn_scoped(scope, move || {
-                let (mut reading, mut splitting) = (None, None);
+                // Its reading half and its reader come just before the first lines.
+                let mut halves = None;
                 let mut warnings = Vec::new();
-                for work in work {
-                    match work {
-                        Work::Start(mine) => reading = Some(mine),
-                        Work::Reader(mine) => splitting = Some(mine),
-                        Work::Split {
-                            mut lines,
-                            start,
-                            mut batch,
-                            promise,
-                        } => {
-                            if let (Some(reading), Some(reader)) =
-                                (reading.as_mut(), splitting.as_mut())
-                            {
-                                reader.resume(start);
-                                let mut into = IntoBatch {
-                                    reading,
-                                    batch: &mut batch,
-                                };
-                                // The one-shot read keeps no warnings (nor does the
-                                // calling thread's reader).
-                                reader.feed(&lines, &mut into, &mut warnings);
-                                warnings.clear();
-                            }
-                            // The counting thread may have stopped; then it is dropped.
-                            let _ = promise.send(batch);
-                            lines.clear();
-                            let _ = block_back.send(lines);
-                        }
+                for Split {
+                    mut lines,
+                    start,
+                    mut batch,
+                    promise,
+                } in work
+                {
+                    if halves.is_none() {
+                        halves = helper_started.recv().ok();
                     }
+                    if let Some((reading, reader)) = halves.as_mut() {
+                        reader.resume(start);
+                        let mut into = IntoBatch {
+                            reading,
+                            batch: &mut batch,
+                        };
+                        // The one-shot read keeps no warnings (nor does the calling
+                        // thread's reader).
+                        reader.feed(&lines, &mut into, &mut warnings);
+                        warnings.clear();
+                    }
+                    // The counting thread may have stopped; then it is dropped.
+                    let _ = promise.send(batch);
+                    lines.clear();
+                    let _ = block_back.send(lines);
                 }
             })
             .map_err(spawn_failed)?;
@@ -112,11 +110,12 @@ pub(super) fn tally<R: Read, E>(
             start: Some(start),
             to_counting,
             to_helper,
+            start_helper,
             spare,
             spare_blocks,
             block: None,
             block_start: Handed::default(),
-            helper_splits: false,
+            helper: None,
             problem: None,
         };
         let header = read_all(&mut sink, &mut reader, delimiter, size)?;
@@ -222,20 +221,13 @@ enum Slot {
     Pending(mpsc::Receiver<Batch>),
 }
 
-/// What the helper is handed.
-enum Work {
-    /// Its reading half (once the header is read).
-    Start(Reading),
-    /// Its reader for the lines it is handed (once, before the first lines).
-    Reader(Reader),
-    /// Whole lines to split (starting at `start`) and read into the (empty) batch,
-    /// which then goes to the promise.
-    Split {
-        lines: Vec<u8>,
-        start: Handed,
-        batch: Batch,
-        promise: mpsc::SyncSender<Batch>,
-    },
+/// What the helper is handed: whole lines to split (starting at `start`) and read
+/// into the (empty) batch, which then goes to the promise.
+struct Split {
+    lines: Vec<u8>,
+    start: Handed,
+    batch: Batch,
+    promise: mpsc::SyncSender<Batch>,
 }
 
 /// One record into the batch: read, or noted as too long.
@@ -272,7 +264,9 @@ struct Sink<E, F> {
     /// Where the counting half and the tally go once the header is read.
     start: Option<mpsc::SyncSender<(Counting, Tally)>>,
     to_counting: mpsc::SyncSender<Slot>,
-    to_helper: mpsc::Sender<Work>,
+    to_helper: mpsc::Sender<Split>,
+    /// Where the helper's reading half and reader go, before its first lines.
+    start_helper: mpsc::SyncSender<(Reading, Reader)>,
     /// Batches the counting thread has emptied, to fill again.
     spare: mpsc::Receiver<Batch>,
     /// Blocks the helper has read: while there is one, lines may go to it.
@@ -281,8 +275,8 @@ struct Sink<E, F> {
     /// with lines that start at `block_start`.
     block: Option<Vec<u8>>,
     block_start: Handed,
-    /// Whether the helper has its reader (see [`Work::Reader`]).
-    helper_splits: bool,
+    /// The helper's reading half, until it goes before the first lines.
+    helper: Option<Reading>,
     problem: Option<TallyError<E>>,
 }
 
@@ -319,15 +313,14 @@ impl<E, F> Sink<E, F> {
         else {
             return 0;
         };
-        if !self.helper_splits {
-            let sent = parser
-                .for_hand_offs()
-                .is_some_and(|reader| self.to_helper.send(Work::Reader(reader)).is_ok());
-            if !sent {
+        if let Some(reading) = self.helper.take() {
+            let Some(reader) = parser.for_hand_offs() else {
+                self.helper = Some(reading);
                 self.block = Some(lines);
                 return 0;
-            }
-            self.helper_splits = true;
+            };
+            // A thread that has stopped shows when the lines are sent.
+            let _ = self.start_helper.send((reading, reader));
         }
         let Some((cut, start)) = parser.hand_off(data) else {
             match lines.is_empty() {
@@ -353,7 +346,7 @@ impl<E, F> Sink<E, F> {
     fn send_block(&mut self, lines: Vec<u8>) {
         let (promise, pending) = mpsc::sync_channel(1);
         let batch = self.spare.try_recv().unwrap_or_default();
-        let work = Work::Split {
+        let work = Split {
             lines,
             start: self.block_start,
             batch,
@@ -399,8 +392,7 @@ impl<E, F: FnOnce(&[&str]) -> Result<Layout, E>> crate::follow::Out for Sink<E, 
             Ok(layout) => {
                 let tally = Tally::new(layout.measures.len());
                 let (reading, counting) = Counter::new(&layout).into_halves();
-                // A thread that has stopped shows when the first batch is sent.
-                let _ = self.to_helper.send(Work::Start(reading.another()));
+                self.helper = Some(reading.another());
                 if let Some(start) = self.start.take() {
                     let _ = start.send((counting, tally));
                 }
