@@ -63,6 +63,14 @@ impl<'a> Fields<'a> {
         (start <= end && end <= self.bytes.len()).then_some((self.bytes, start, end))
     }
 
+    /// The record's bytes from the first byte of `value` on, when `value` is part of
+    /// them (a field, or part of one); otherwise anything (the caller checks that
+    /// what it gets starts where `value` does).
+    pub(crate) fn rest_from(&self, value: &[u8]) -> &'a [u8] {
+        let at = (value.as_ptr() as usize).wrapping_sub(self.bytes.as_ptr() as usize);
+        self.bytes.get(at..).unwrap_or_default()
+    }
+
     /// The number of fields.
     pub fn len(&self) -> usize {
         self.ends.len()

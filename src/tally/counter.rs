@@ -257,6 +257,20 @@ impl Batch {
         });
     }
 
+    /// Append an id. `after` is the record's bytes from the id's first byte on: an
+    /// id of at most 16 bytes with 16 bytes there goes as one copy of those 16, cut
+    /// back to the id (a copy of fixed length needs no call to `memcpy`).
+    fn push_id(&mut self, id: &[u8], after: &[u8]) {
+        let start = self.ids.len();
+        match after.first_chunk::<16>() {
+            Some(window) if id.len() <= 16 && std::ptr::eq(after.as_ptr(), id.as_ptr()) => {
+                self.ids.extend_from_slice(window);
+                self.ids.truncate(start + id.len());
+            }
+            _ => self.ids.extend_from_slice(id),
+        }
+    }
+
     fn clear(&mut self) {
         self.entries.clear();
         self.answers.clear();
@@ -476,6 +490,7 @@ impl Reading {
 
     /// Read a record in place; `None` (with nothing of it in the batch) when it needs
     /// the record-by-record path.
+    #[inline]
     fn read_in_place(&mut self, fields: Fields<'_>, line: u64, batch: &mut Batch) -> Option<Entry> {
         if fields.len() != self.layout.width || self.used.len() > MAX_USED {
             return None;
@@ -549,18 +564,21 @@ impl Reading {
         }
         if let Some(raw) = slots.id.map(value).filter(|raw| !raw.is_empty()) {
             entry.id_start = batch.ids.len() as u32;
-            batch.ids.extend_from_slice(raw);
+            batch.push_id(raw, fields.rest_from(raw));
             entry.id_end = batch.ids.len() as u32;
             batch.hashes.push(id_hash(raw));
         }
         // The answers: first by the run of bytes of the measures' columns together.
         let answer_run = RunKey::of_columns(&fields, self.answer_run);
         let measures = self.layout.measures.len();
-        if let Some((answers, combined)) = answer_run
+        if let Some(&(answers, combined)) = answer_run
             .and_then(|run| self.answers_by_run.get(run))
-            .and_then(|(answers, combined)| Some((answers.get(..measures)?, *combined)))
+            .filter(|_| measures <= RUN_MEASURES)
         {
-            batch.answers.extend_from_slice(answers);
+            // All of them at once (a copy of fixed length), cut back to the measures.
+            let start = batch.answers.len();
+            batch.answers.extend_from_slice(&answers);
+            batch.answers.truncate(start + measures);
             entry.combined = combined;
             return Some(entry);
         }
