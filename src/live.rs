@@ -85,7 +85,9 @@ pub enum LiveEvent {
 /// [`Live::caught_up`] false there is more to read: a caller showing progress reads
 /// [`Live::bytes_read`] against [`Live::file_size`] (a rate from two such readings
 /// and the time between them) and polls again. The records are counted as they are
-/// read, through the same record reader and [`Counter`] as the one-shot read.
+/// read, through the same record reader and [`Counter`] as the one-shot read; the
+/// counting half (the id set, the sums) runs beside on a thread of its own
+/// ([`Counter::beside`]), and the tally is back here whenever `poll` returns.
 #[derive(Debug)]
 pub struct Live {
     follower: Follower,
@@ -192,11 +194,21 @@ impl Live {
     pub fn poll(&mut self) -> Result<Vec<LiveEvent>, FollowError> {
         let state = &mut self.state;
         state.events.clear();
-        for _ in 0..POLLS_AT_ONCE {
+        for piece in 1..=POLLS_AT_ONCE {
             state.counted = 0;
             let change = self.follower.poll_into(state);
-            if let Some(counter) = state.counter.as_mut() {
-                counter.flush(&mut state.tally);
+            // The tally is whole again (back from the counting thread) before this
+            // returns, and before the id set is sized; in between, the counting
+            // thread goes on while the next piece is read.
+            let last = piece == POLLS_AT_ONCE || change.is_err() || self.follower.caught_up();
+            if (last || !state.sized)
+                && let Some(counter) = state.counter.as_mut()
+                && let Err(stopped) = counter.flush(&mut state.tally)
+            {
+                return Err(FollowError::Io {
+                    path: state.study.source.file.display().to_string(),
+                    error: stopped.to_string(),
+                });
             }
             state.after(change?);
             if !state.sized
@@ -283,7 +295,7 @@ impl State {
         match self.study.layout(&refs) {
             Ok(layout) => {
                 self.tally = Tally::new(self.study.measures.len());
-                self.counter = Some(Counter::new(&layout));
+                self.counter = Some(Counter::beside(&layout));
                 self.header = Some(names);
                 self.problem = None;
                 self.sized = false;
@@ -297,8 +309,13 @@ impl State {
     }
 
     /// The header does not fit: keep the last statistics, count nothing more.
-    fn refuse(&mut self, message: String, columns: Option<HeaderChange>) {
-        self.counter = None;
+    fn refuse(&mut self, mut message: String, columns: Option<HeaderChange>) {
+        // The tally comes back from the counting thread first, if it is there.
+        if let Some(mut counter) = self.counter.take()
+            && let Err(stopped) = counter.flush(&mut self.tally)
+        {
+            message = format!("{message} ({stopped})");
+        }
         self.problem = Some(message.clone());
         self.events
             .push(LiveEvent::HeaderProblem { message, columns });

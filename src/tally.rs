@@ -31,7 +31,7 @@ mod counter;
 mod ids;
 mod pipe;
 
-pub use counter::Counter;
+pub use counter::{Counter, CountingStopped};
 use ids::IdSet;
 
 /// Rejections and duplicates listed in full (the rest are counted).

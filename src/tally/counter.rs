@@ -1,7 +1,9 @@
 //! The fast way to count many records: [`Counter`] gives exactly what
 //! [`Tally::add_record`] gives record by record, without the per-record allocations.
 //! It has two halves joined by a [`Batch`], which `tally::pipe` runs on separate
-//! threads for a one-shot read:
+//! threads for a one-shot read, and [`Counter::beside`] on two for the follower
+//! (the counting half on a thread of its own, the tally going to it and back at
+//! each flush):
 //!
 //! - [`Reading`]: a record whose every check passes is read in place: the cell is
 //!   found from its raw values through a small cache (raw bytes → cell), answers are
@@ -29,7 +31,7 @@
 
 use std::collections::HashMap;
 use std::hash::{BuildHasherDefault, Hash, Hasher};
-use std::sync::{Arc, Mutex};
+use std::sync::{Arc, Mutex, mpsc};
 
 use jiff::Timestamp;
 
@@ -46,6 +48,10 @@ const CELL_CACHE: usize = 4096;
 const WEIGHT_CACHE: usize = 256;
 /// Records read before they are counted together, on one thread.
 const BATCH: usize = 256;
+/// Records sent at a time to a counting thread beside (see [`Counter::beside`]), and
+/// batches that may wait for it.
+const BESIDE_BATCH: usize = 2048;
+const BESIDE_QUEUED: usize = 16;
 /// Cells of up to this many columns are looked up by their packed values.
 const PACKED_CELLS: usize = 4;
 /// The ids whose slots in the id set are prefetched together, one run ahead (see
@@ -164,25 +170,147 @@ impl Staged {
     }
 }
 
-/// Counts records into a [`Tally`] (see the module notes), on one thread: a
-/// `Reading` and a `Counting` joined by a `Batch`. Call [`Counter::flush`]
-/// before reading the tally: until then the sums of the cells are held here.
+/// Counts records into a [`Tally`] (see the module notes): a `Reading` and a
+/// `Counting` joined by a `Batch`, both on the caller's thread ([`Counter::new`]) or
+/// with the counting half on a thread of its own ([`Counter::beside`]). Call
+/// [`Counter::flush`] before reading the tally: until then the sums of the cells are
+/// held here (and, beside, the tally itself is on the counting thread).
 #[derive(Debug)]
 pub struct Counter {
     reading: Reading,
-    counting: Counting,
     batch: Batch,
+    counting: Half,
 }
 
-impl Counter {
-    /// A counter for records read through `layout`.
-    pub fn new(layout: &Layout) -> Counter {
-        let registry = Shared::default();
-        Counter {
-            reading: Reading::new(layout, Arc::clone(&registry)),
-            counting: Counting::new(layout, registry),
-            batch: Batch::default(),
+/// Where a [`Counter`]'s counting half runs.
+#[derive(Debug)]
+enum Half {
+    Here(Counting),
+    Beside(Beside),
+}
+
+/// A counting half on a thread of its own (see [`Counter::beside`]).
+#[derive(Debug)]
+struct Beside {
+    work: mpsc::SyncSender<Work>,
+    /// Batches the counting thread has emptied, to fill again.
+    spare: mpsc::Receiver<Batch>,
+    /// The tally, back at each flush.
+    counted: mpsc::Receiver<Box<Tally>>,
+    /// Whether the tally is on the counting thread (from the first batch after a
+    /// flush to the next flush).
+    away: bool,
+    measures: usize,
+}
+
+/// What the counting thread is handed, in order: a batch to count (with the tally,
+/// when it is the first since a flush), and whether to flush after it (merge the
+/// staged sums and send the tally back).
+struct Work {
+    batch: Batch,
+    tally: Option<Box<Tally>>,
+    flush: bool,
+}
+
+/// The counting thread beside: counts what it is handed until the counter goes.
+fn count_beside(
+    mut counting: Counting,
+    work: mpsc::Receiver<Work>,
+    spare: mpsc::Sender<Batch>,
+    counted: mpsc::Sender<Box<Tally>>,
+) {
+    let mut tally: Option<Box<Tally>> = None;
+    for Work {
+        mut batch,
+        tally: given,
+        flush,
+    } in work
+    {
+        if given.is_some() {
+            tally = given;
         }
+        match tally.as_mut() {
+            Some(tally) => counting.count(tally, &mut batch),
+            None => batch.clear(), // unreachable: the tally comes with the first batch
+        }
+        // The counter may have gone; then the batch goes too.
+        let _ = spare.send(batch);
+        if flush && let Some(mut tally) = tally.take() {
+            counting.flush(&mut tally);
+            if counted.send(tally).is_err() {
+                return;
+            }
+        }
+    }
+}
+
+/// The counting thread of a [`Counter::beside`] stopped before it gave the tally
+/// back (it does not, short of a fault in the program).
+#[derive(Debug, thiserror::Error)]
+#[error("the counting thread stopped unexpectedly")]
+pub struct CountingStopped;
+
+impl Counter {
+    /// A counter for records read through `layout`, on the caller's thread.
+    pub fn new(layout: &Layout) -> Counter {
+        let (reading, counting) = Counter::halves(layout);
+        Counter {
+            reading,
+            batch: Batch::default(),
+            counting: Half::Here(counting),
+        }
+    }
+
+    /// A counter whose counting half (the id set, the sums) runs on a thread of its
+    /// own, beside the caller's reading half: a long read takes about as long as
+    /// its reading alone. Batches of 2,048 records go to it as they fill;
+    /// the tally goes with the first after a flush and is back when
+    /// [`Counter::flush`] returns. Counts exactly as [`Counter::new`] does. Where no
+    /// thread can be started, the counter is [`Counter::new`]'s.
+    pub fn beside(layout: &Layout) -> Counter {
+        let (reading, counting) = Counter::halves(layout);
+        let (work, to_count) = mpsc::sync_channel(BESIDE_QUEUED);
+        let (give_spare, spare) = mpsc::channel();
+        let (give_back, counted) = mpsc::channel();
+        // The counting half goes once the thread runs (and stays here if it cannot).
+        let (hand, handed) = mpsc::sync_channel::<Counting>(1);
+        let spawned = std::thread::Builder::new()
+            .name("closeout counting".into())
+            .spawn(move || {
+                if let Ok(counting) = handed.recv() {
+                    count_beside(counting, to_count, give_spare, give_back);
+                }
+            });
+        let beside = |work, spare, counted| {
+            Half::Beside(Beside {
+                work,
+                spare,
+                counted,
+                away: false,
+                measures: layout.measures.len(),
+            })
+        };
+        let counting = match spawned {
+            Ok(_) => match hand.send(counting) {
+                Ok(()) => beside(work, spare, counted),
+                Err(mpsc::SendError(counting)) => Half::Here(counting),
+            },
+            Err(_) => Half::Here(counting),
+        };
+        Counter {
+            reading,
+            batch: Batch::default(),
+            counting,
+        }
+    }
+
+    /// A reading half and a counting half for `layout`, sharing one registry.
+    pub(crate) fn halves(layout: &Layout) -> (Reading, Counting) {
+        let registry = Shared::default();
+        (
+            Reading::new(layout, Arc::clone(&registry)),
+            Counting::new(layout, registry),
+        )
     }
 
     /// Count one record (as [`Tally::add_record`] would) starting on `line`.
@@ -199,21 +327,60 @@ impl Counter {
     }
 
     fn count_if_full(&mut self, tally: &mut Tally) {
-        if self.batch.len() >= BATCH {
-            self.counting.count(tally, &mut self.batch);
+        let full = match self.counting {
+            Half::Here(_) => BATCH,
+            Half::Beside(_) => BESIDE_BATCH,
+        };
+        if self.batch.len() >= full {
+            self.count(tally, false);
+        }
+    }
+
+    /// Count the batch: here, or send it to the counting thread (with the tally, if
+    /// it is still here, and then ask for the tally back if `flush`).
+    fn count(&mut self, tally: &mut Tally, flush: bool) {
+        match &mut self.counting {
+            Half::Here(counting) => {
+                counting.count(tally, &mut self.batch);
+                if flush {
+                    counting.flush(tally);
+                }
+            }
+            Half::Beside(beside) => {
+                let next = beside.spare.try_recv().unwrap_or_default();
+                let work = Work {
+                    batch: std::mem::replace(&mut self.batch, next),
+                    tally: (!beside.away)
+                        .then(|| Box::new(std::mem::replace(tally, Tally::new(beside.measures)))),
+                    flush,
+                };
+                beside.away = !flush;
+                // A thread that has stopped shows at the flush.
+                let _ = beside.work.send(work);
+            }
         }
     }
 
     /// Merge the staged sums into the tally. Exact: the tally then equals the one
-    /// built record by record.
-    pub fn flush(&mut self, tally: &mut Tally) {
-        self.counting.count(tally, &mut self.batch);
-        self.counting.flush(tally);
-    }
-
-    /// The two halves, to run on other threads (see `tally::tally_csv_sized`).
-    pub(crate) fn into_halves(self) -> (Reading, Counting) {
-        (self.reading, self.counting)
+    /// built record by record. Beside, the tally comes back from the counting thread
+    /// (an error only if that thread stopped, which leaves `tally` empty).
+    pub fn flush(&mut self, tally: &mut Tally) -> Result<(), CountingStopped> {
+        let beside = match &self.counting {
+            Half::Here(_) => None,
+            Half::Beside(beside) => Some(beside.away),
+        };
+        match beside {
+            None => self.count(tally, true),
+            // Nothing counted since the last flush: nothing staged either.
+            Some(false) if self.batch.len() == 0 => {}
+            Some(_) => {
+                self.count(tally, true);
+                if let Half::Beside(beside) = &self.counting {
+                    *tally = *beside.counted.recv().map_err(|_| CountingStopped)?;
+                }
+            }
+        }
+        Ok(())
     }
 }
 
@@ -1529,6 +1696,104 @@ mod tests {
                 assert_eq!(a.label, b.label);
             }
         }
+    }
+
+    /// A counter whose counting half runs beside (on its own thread) counts what one
+    /// on the caller's thread counts: the same records (with duplicates, rejected
+    /// and too-long ones), read in seeded pieces, with flushes at seeded moments
+    /// (none for thousands of records, several in a row, after a single record):
+    /// after every flush the two tallies are equal, labels included, and the tally
+    /// beside is whole again.
+    #[test]
+    fn counting_beside_counts_as_counting_here() {
+        use crate::follow::{Out, Reader};
+        use crate::rows::MeasureRule;
+        let layout = Layout {
+            width: 4,
+            cells: vec![1],
+            measures: vec![MeasureRule {
+                column: 2,
+                yes: vec!["y".into()],
+                no: vec!["n".into()],
+            }],
+            id: Some(0),
+            weight: None,
+            time: Some(3),
+        };
+        struct Both {
+            here: Counter,
+            beside: Counter,
+            tallies: (Tally, Tally),
+        }
+        impl Out for Both {
+            fn record(&mut self, line: u64, _: u64, fields: Fields<'_>, too_long: Option<u64>) {
+                let (here, beside) = (&mut self.tallies.0, &mut self.tallies.1);
+                match too_long {
+                    Some(bytes) => {
+                        self.here.add_too_long(here, line, bytes);
+                        self.beside.add_too_long(beside, line, bytes);
+                    }
+                    None => {
+                        self.here.add(here, fields, line);
+                        self.beside.add(beside, fields, line);
+                    }
+                }
+            }
+        }
+        let mut rng = ChaCha8Rng::seed_from_u64(13);
+        let mut text = b"id,cell,q,at\n".to_vec();
+        for i in 0..40_000u32 {
+            let id = if i % 13 == 12 { i - 5 } else { i };
+            let cell = ["north", "South", " east", "west"][rng.random_range(0..4)];
+            let q = ["y", "n", "", "maybe", " y"][rng.random_range(0..5)];
+            let at = match i % 101 {
+                0 => "not a time".to_string(),
+                _ => format!("2026-03-02T07:{:02}:{:02}Z", (i / 60) % 60, i % 60),
+            };
+            let line = match i % 997 {
+                0 => format!("r{id},{cell},{q},{at},one field too many\n"),
+                1 => format!("r{id},\"{}\",{q},{at}\n", "x".repeat(300)),
+                _ => format!("r{id},{cell},{q},{at}\n"),
+            };
+            text.extend_from_slice(line.as_bytes());
+        }
+        let mut both = Both {
+            here: Counter::new(&layout),
+            beside: Counter::beside(&layout),
+            tallies: (Tally::new(1), Tally::new(1)),
+        };
+        assert!(matches!(both.beside.counting, Half::Beside(_)));
+        let mut reader = Reader::new(b',', 256);
+        let mut warnings = Vec::new();
+        let (mut at, mut flushes) = (0, 0);
+        while at < text.len() {
+            let piece = match rng.random_range(0..4) {
+                0 => 1,
+                1 => rng.random_range(1..200),
+                _ => rng.random_range(1..60_000),
+            };
+            let end = (at + piece).min(text.len());
+            // Bytes not taken (none here: no byte-order mark) would come again.
+            at += reader.feed(&text[at..end], &mut both, &mut warnings);
+            if at >= text.len() {
+                reader.finish(&mut both, &mut warnings);
+            }
+            if rng.random_range(0..3) == 0 || at >= text.len() {
+                for _ in 0..rng.random_range(1..3) {
+                    both.here.flush(&mut both.tallies.0).unwrap();
+                    both.beside.flush(&mut both.tallies.1).unwrap();
+                }
+                flushes += 1;
+                let (here, beside) = &both.tallies;
+                assert_eq!(here, beside);
+                for (a, b) in here.cells.values().zip(beside.cells.values()) {
+                    assert_eq!(a.label, b.label);
+                }
+            }
+        }
+        let (here, _) = &both.tallies;
+        assert!(flushes > 20 && here.duplicates > 0 && here.rejected > 0);
+        assert!(here.cells.values().map(|c| c.responses).sum::<u64>() > 30_000);
     }
 
     /// A run's key holds its bytes and its length, however its words are read: at

@@ -391,7 +391,7 @@ impl<E, F: FnOnce(&[&str]) -> Result<Layout, E>> crate::follow::Out for Sink<E, 
         match resolve(&refs) {
             Ok(layout) => {
                 let tally = Tally::new(layout.measures.len());
-                let (reading, counting) = Counter::new(&layout).into_halves();
+                let (reading, counting) = Counter::halves(&layout);
                 self.helper = Some(reading.another());
                 if let Some(start) = self.start.take() {
                     let _ = start.send((counting, tally));
