@@ -216,7 +216,11 @@ impl Live {
                 && let Some(size) = self.follower.size()
             {
                 state.tally.reserve_ids_for(self.follower.offset(), size);
-                state.sized = state.tally.distinct_ids() > 0 || self.follower.caught_up();
+                // Without an id column there is nothing to size (nor a reason to
+                // take the tally back after every piece).
+                state.sized = state.tally.distinct_ids() > 0
+                    || self.follower.caught_up()
+                    || state.study.source.id.is_none();
             }
             for warning in self.follower.take_warnings() {
                 if matches!(warning, Warning::RepeatedHeader { .. }) {
