@@ -119,8 +119,20 @@ impl Fieldwork {
     /// The study in a fresh folder with `first` as the responses file, read `read_limit`
     /// bytes per follower poll, and a dashboard of `width` × `height`.
     fn new(first: &str, read_limit: u64, width: u16, height: u16, theme: Theme) -> Fieldwork {
+        Fieldwork::with_study(STUDY, first, read_limit, width, height, theme)
+    }
+
+    /// The same with another study file.
+    fn with_study(
+        study: &str,
+        first: &str,
+        read_limit: u64,
+        width: u16,
+        height: u16,
+        theme: Theme,
+    ) -> Fieldwork {
         let dir = tempfile::tempdir().unwrap();
-        std::fs::write(dir.path().join("study.toml"), STUDY).unwrap();
+        std::fs::write(dir.path().join("study.toml"), study).unwrap();
         let path = dir.path().join("responses.csv");
         std::fs::write(&path, first).unwrap();
         let study = Study::load(&dir.path().join("study.toml")).unwrap();
@@ -312,6 +324,33 @@ fn a_tiny_terminal_is_told_what_it_needs() {
     f.terminal.backend_mut().resize(80, 24);
     f.app.update(Event::Resize(80, 24));
     insta::assert_snapshot!("smallest_size", f.screen());
+}
+
+/// A figure wider than its column's heading keeps every digit: with a target of
+/// ±0.05 points the open cells without a population still need millions of
+/// responses ("3 841 …", nine characters where the column was six wide and cut the
+/// first digits off), and the columns beside it move over.
+#[test]
+fn large_figures_are_shown_whole() {
+    let study = STUDY.replace("margin = 0.10", "margin = 0.0005");
+    let mut f = Fieldwork::with_study(&study, &first_stage(), 1 << 20, 100, 30, Theme::mono());
+    f.catch_up(after(109));
+    let screen = f.screen();
+    let s = f.app.snapshot().unwrap();
+    let needs: Vec<u64> = s.cells.iter().filter_map(|c| c.needed).collect();
+    // (The cell with a population of 900 needs fewer than that.)
+    assert_eq!(
+        needs.iter().filter(|&&n| n >= 1_000_000).count(),
+        3,
+        "{screen}"
+    );
+    for need in needs {
+        let shown = closeout::dashboard::format::count(need);
+        assert!(
+            screen.contains(&format!(" {shown} ")),
+            "{shown} not whole in\n{screen}"
+        );
+    }
 }
 
 #[test]

@@ -485,14 +485,33 @@ fn draw_cells(frame: &mut Frame, area: Rect, app: &App, drawn: &mut Drawn) {
     if widest_col {
         header.push("widest measure");
     }
+    // The counts, the responses still needed and the rates, as shown: their columns
+    // are as wide as the widest of them (over every row, so that they do not move
+    // while the window scrolls), so that no figure loses a digit.
+    let figures: Vec<[String; 3]> = rows
+        .iter()
+        .map(|c| {
+            let needed = match (c.status, c.needed) {
+                (Status::Met, _) => String::new(),
+                (_, Some(k)) => count(k),
+                (_, None) => "—".to_string(),
+            };
+            let rate = c.rate_per_hour.map_or("—".into(), |r| format!("{r:.1}"));
+            [count(c.responses), needed, rate]
+        })
+        .collect();
+    let [resp_width, need_width, rate_width] = [0, 1, 2].map(|k| {
+        let widest = figures.iter().map(|f| Span::raw(f[k].as_str()).width());
+        widest.max().unwrap_or(0).clamp(6, 20) as u16
+    });
     let fixed: u16 = 1
         + status_width
-        + 6
+        + resp_width
         + (bar_width as u16 + 5)
         + 6
         + 6
-        + 6
-        + 6
+        + need_width
+        + rate_width
         + 9
         + if widest_col { 18 } else { 0 };
     let columns = 10 + u16::from(widest_col);
@@ -501,12 +520,12 @@ fn draw_cells(frame: &mut Frame, area: Rect, app: &App, drawn: &mut Drawn) {
         Constraint::Length(1),
         Constraint::Length(status_width),
         Constraint::Length(label_width),
-        Constraint::Length(6),
+        Constraint::Length(resp_width),
         Constraint::Length(bar_width as u16 + 5),
         Constraint::Length(6),
         Constraint::Length(6),
-        Constraint::Length(6),
-        Constraint::Length(6),
+        Constraint::Length(need_width),
+        Constraint::Length(rate_width),
         Constraint::Length(9),
     ];
     if widest_col {
@@ -519,6 +538,7 @@ fn draw_cells(frame: &mut Frame, area: Rect, app: &App, drawn: &mut Drawn) {
         .take(visible)
         .map(|(i, c)| {
             let is_selected = Some(i) == selected;
+            let [responses, needed, rate] = figures.get(i).cloned().unwrap_or_default();
             let w = widest(c);
             let status_style = if c.planned {
                 t.status(c.status)
@@ -542,11 +562,6 @@ fn draw_cells(frame: &mut Frame, area: Rect, app: &App, drawn: &mut Drawn) {
                     Span::styled(points1(m), style)
                 },
             );
-            let needed = match (c.status, c.needed) {
-                (Status::Met, _) => String::new(),
-                (_, Some(k)) => count(k),
-                (_, None) => "—".to_string(),
-            };
             let eta = match (c.status, c.eta) {
                 (Status::Met, _) => String::new(),
                 (_, Some(at)) => short_moment(at, s.as_of, &app.zone),
@@ -563,7 +578,7 @@ fn draw_cells(frame: &mut Frame, area: Rect, app: &App, drawn: &mut Drawn) {
                     status_style,
                 )),
                 Cell::from(fit(&clean(&c.label, 200), label_width as usize)),
-                Cell::from(Line::from(count(c.responses)).alignment(Alignment::Right)),
+                Cell::from(Line::from(responses).alignment(Alignment::Right)),
                 Cell::from(progress),
                 Cell::from(
                     Line::from(w.and_then(|m| m.estimate).map_or("—".into(), percent1))
@@ -572,10 +587,7 @@ fn draw_cells(frame: &mut Frame, area: Rect, app: &App, drawn: &mut Drawn) {
                 Cell::from(Line::from(margin).alignment(Alignment::Right)),
                 Cell::from(Line::from(needed).alignment(Alignment::Right)),
             ];
-            cells.push(Cell::from(
-                Line::from(c.rate_per_hour.map_or("—".into(), |r| format!("{r:.1}")))
-                    .alignment(Alignment::Right),
-            ));
+            cells.push(Cell::from(Line::from(rate).alignment(Alignment::Right)));
             cells.push(Cell::from(eta));
             if widest_col {
                 cells.push(Cell::from(w.map_or(String::new(), |m| clean(&m.name, 18))));
