@@ -500,9 +500,13 @@ fn draw_cells(frame: &mut Frame, area: Rect, app: &App, drawn: &mut Drawn) {
             [count(c.responses), needed, rate]
         })
         .collect();
+    // (26: the widest count, u64::MAX with its spaces.)
     let [resp_width, need_width, rate_width] = [0, 1, 2].map(|k| {
-        let widest = figures.iter().map(|f| Span::raw(f[k].as_str()).width());
-        widest.max().unwrap_or(0).clamp(6, 20) as u16
+        let widths = figures
+            .iter()
+            .filter_map(|f| f.get(k))
+            .map(|t| Span::raw(t).width());
+        widths.max().unwrap_or(0).clamp(6, 26) as u16
     });
     let fixed: u16 = 1
         + status_width
