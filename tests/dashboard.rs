@@ -328,7 +328,7 @@ fn a_tiny_terminal_is_told_what_it_needs() {
 
 /// A figure wider than its column's heading keeps every digit: with a target of
 /// ±0.05 points the open cells without a population still need millions of
-/// responses ("3 841 …", nine characters where the column was six wide and cut the
+/// responses ("4 216 468", nine characters where the column was six wide and cut the
 /// first digits off), and the columns beside it move over.
 #[test]
 fn large_figures_are_shown_whole() {
