@@ -272,7 +272,7 @@ impl Counter {
         let (work, to_count) = mpsc::sync_channel(BESIDE_QUEUED);
         let (give_spare, spare) = mpsc::channel();
         let (give_back, counted) = mpsc::channel();
-        // The counting half goes once the thread runs (and stays here if it cannot).
+        // The counting half goes to the thread once it runs.
         let (hand, handed) = mpsc::sync_channel::<Counting>(1);
         let spawned = std::thread::Builder::new()
             .name("closeout counting".into())
@@ -281,21 +281,18 @@ impl Counter {
                     count_beside(counting, to_count, give_spare, give_back);
                 }
             });
-        let beside = |work, spare, counted| {
-            Half::Beside(Beside {
+        if spawned.is_err() {
+            return Counter::new(layout);
+        }
+        let counting = match hand.send(counting) {
+            Ok(()) => Half::Beside(Beside {
                 work,
                 spare,
                 counted,
                 away: false,
                 measures: layout.measures.len(),
-            })
-        };
-        let counting = match spawned {
-            Ok(_) => match hand.send(counting) {
-                Ok(()) => beside(work, spare, counted),
-                Err(mpsc::SendError(counting)) => Half::Here(counting),
-            },
-            Err(_) => Half::Here(counting),
+            }),
+            Err(mpsc::SendError(counting)) => Half::Here(counting),
         };
         Counter {
             reading,
@@ -365,20 +362,15 @@ impl Counter {
     /// built record by record. Beside, the tally comes back from the counting thread
     /// (an error only if that thread stopped, which leaves `tally` empty).
     pub fn flush(&mut self, tally: &mut Tally) -> Result<(), CountingStopped> {
-        let beside = match &self.counting {
-            Half::Here(_) => None,
-            Half::Beside(beside) => Some(beside.away),
-        };
-        match beside {
-            None => self.count(tally, true),
-            // Nothing counted since the last flush: nothing staged either.
-            Some(false) if self.batch.len() == 0 => {}
-            Some(_) => {
-                self.count(tally, true);
-                if let Half::Beside(beside) = &self.counting {
-                    *tally = *beside.counted.recv().map_err(|_| CountingStopped)?;
-                }
-            }
+        if let Half::Beside(beside) = &self.counting
+            && !beside.away
+            && self.batch.len() == 0
+        {
+            return Ok(()); // nothing counted since the last flush: nothing staged either
+        }
+        self.count(tally, true);
+        if let Half::Beside(beside) = &self.counting {
+            *tally = *beside.counted.recv().map_err(|_| CountingStopped)?;
         }
         Ok(())
     }

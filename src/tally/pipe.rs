@@ -18,7 +18,7 @@
 use std::io::Read;
 use std::sync::mpsc;
 
-use super::counter::{Batch, Counting, Reading};
+use super::counter::{Batch, Counting, CountingStopped, Reading};
 use super::{Counter, Tally, TallyError};
 use crate::follow::{Fields, Handed, Reader};
 use crate::rows::Layout;
@@ -126,14 +126,11 @@ pub(super) fn tally<R: Read, E>(
         // Every sender goes, so that the threads end (the counting thread may still
         // be waiting for its start when there was no header).
         drop(sink);
-        let tally = counting
-            .join()
-            .map_err(|_| TallyError::Io("the counting thread stopped unexpectedly".into()))?;
+        let stopped = || TallyError::Io(CountingStopped.to_string());
+        let tally = counting.join().map_err(|_| stopped())?;
         match (header, tally) {
             (Some(header), Some(tally)) => Ok((header, tally)),
-            (Some(_), None) => Err(TallyError::Io(
-                "the counting thread stopped unexpectedly".into(),
-            )),
+            (Some(_), None) => Err(stopped()),
             (None, _) => Err(TallyError::NoHeader),
         }
     })
